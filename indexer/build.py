@@ -1,0 +1,182 @@
+"""Build or refresh an index from folders of documents (``sounding index``)."""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .chunking import Chunk, chunk_document
+from .documents import Document, Skipped
+from .embedding import Embedder, describe
+from .errors import SettingsError
+from .loaders import iter_root
+from .settings import IndexSettings
+from .store import IndexWriter
+
+# Documents are embedded and committed in groups of about this many chunks:
+# big enough for full encoder batches, small enough that a crash loses little.
+_GROUP_CHUNKS = 512
+
+
+@dataclass
+class RefreshReport:
+    """What one ``sounding index`` run did."""
+
+    added: list[str] = field(default_factory=list)
+    updated: list[str] = field(default_factory=list)
+    removed: list[str] = field(default_factory=list)
+    unchanged: int = 0
+    skipped: list[Skipped] = field(default_factory=list)
+    chunks_embedded: int = 0
+    chunks_reused: int = 0
+    generation: int = 0
+    documents: int = 0
+    chunks: int = 0
+    seconds: float = 0.0
+
+    def summary(self) -> str:
+        """One line of counts."""
+        return (
+            f"added {len(self.added)}, updated {len(self.updated)}, removed {len(self.removed)}, "
+            f"unchanged {self.unchanged}, skipped {len(self.skipped)}; "
+            f"index now holds {self.documents} documents in {self.chunks} chunks "
+            f"(generation {self.generation}, {self.chunks_embedded} chunks embedded, "
+            f"{self.chunks_reused} reused, {self.seconds:.1f} s)"
+        )
+
+    def to_json(self) -> dict[str, object]:
+        return {
+            "added": self.added,
+            "updated": self.updated,
+            "removed": self.removed,
+            "unchanged": self.unchanged,
+            "skipped": [{"path": s.path, "reason": s.reason} for s in self.skipped],
+            "chunks_embedded": self.chunks_embedded,
+            "chunks_reused": self.chunks_reused,
+            "generation": self.generation,
+            "documents": self.documents,
+            "chunks": self.chunks,
+            "seconds": round(self.seconds, 3),
+        }
+
+
+def collection_name(root: Path) -> str:
+    """Default collection of a root: its folder name (a file's: its parent's)."""
+    resolved = root.resolve()
+    if resolved.is_file():
+        resolved = resolved.parent
+    return resolved.name or "default"
+
+
+@dataclass
+class _Pending:
+    doc: Document
+    collection: str
+    chunks: list[Chunk]
+    is_new: bool
+
+
+def refresh_index(
+    roots: Sequence[Path],
+    settings: IndexSettings,
+    embedder: Embedder,
+    *,
+    rebuild: bool = False,
+    collection: str | None = None,
+    progress: Callable[[int, int], None] | None = None,
+) -> RefreshReport:
+    """Bring the index at ``settings.index_dir`` in step with ``roots``.
+
+    A document whose content hash is unchanged is left alone; a changed one
+    is re-chunked, and only chunks whose text changed are re-embedded; a
+    document that is gone from its root is removed. Documents of roots not
+    named in this run are kept. ``progress(done, total)`` is called as chunks
+    are embedded.
+    """
+    started = time.monotonic()
+    if not roots:
+        raise SettingsError("no path to index; name one or more folders or files")
+    for root in roots:
+        if not root.exists():
+            raise SettingsError(f"path to index does not exist: {root}")
+    chunking = settings.chunking
+    chunking.check(embedder.max_tokens)
+    report = RefreshReport()
+    with IndexWriter(settings.index_dir, describe(embedder), chunking, rebuild=rebuild) as writer:
+        known = writer.known()
+        seen: dict[str, str] = {}
+        pending: list[_Pending] = []
+        for root in roots:
+            coll = collection or collection_name(root)
+            for item in iter_root(root, max_file_bytes=settings.max_file_bytes):
+                if isinstance(item, Skipped):
+                    report.skipped.append(item)
+                    continue
+                if item.id in seen:
+                    report.skipped.append(
+                        Skipped(item.id, f"duplicate document id, already taken in {seen[item.id]}")
+                    )
+                    continue
+                seen[item.id] = str(root)
+                if known.get(item.id) == (coll, item.content_hash):
+                    report.unchanged += 1
+                    continue
+                chunks = chunk_document(item, embedder.tokenizer, chunking)
+                if not chunks:
+                    report.skipped.append(Skipped(item.id, "no text"))
+                    seen.pop(item.id)
+                    continue
+                pending.append(_Pending(item, coll, chunks, item.id not in known))
+
+        total = sum(len(p.chunks) for p in pending)
+        done = 0
+        if progress:
+            progress(0, total)
+        group: list[_Pending] = []
+        for i, p in enumerate(pending):
+            group.append(p)
+            if sum(len(g.chunks) for g in group) >= _GROUP_CHUNKS or i == len(pending) - 1:
+                done += _embed_and_store(writer, embedder, group, report)
+                if progress:
+                    progress(done, total)
+                group = []
+
+        collections = {collection or collection_name(r) for r in roots}
+        gone = [i for i, (coll, _) in known.items() if coll in collections and i not in seen]
+        writer.remove(gone)
+        report.removed = sorted(gone)
+        manifest = writer.publish()
+    report.generation = manifest.generation
+    report.documents = manifest.documents
+    report.chunks = manifest.chunks
+    report.seconds = time.monotonic() - started
+    return report
+
+
+def _embed_and_store(
+    writer: IndexWriter, embedder: Embedder, group: list[_Pending], report: RefreshReport
+) -> int:
+    """Embed the chunks of ``group`` that have no stored vector, then store each document."""
+    reuse: list[dict[str, np.ndarray]] = [
+        {} if p.is_new else writer.stored_vectors(p.doc.id) for p in group
+    ]
+    texts: list[str] = []
+    for p, old in zip(group, reuse, strict=True):
+        texts += [c.embed_text for c in p.chunks if c.embed_hash not in old]
+    fresh = iter(embedder.encode(texts)) if texts else iter(())
+    for p, old in zip(group, reuse, strict=True):
+        vectors = np.empty((len(p.chunks), embedder.dimension), dtype=np.float32)
+        for j, c in enumerate(p.chunks):
+            if c.embed_hash in old:
+                vectors[j] = old[c.embed_hash]
+                report.chunks_reused += 1
+            else:
+                vectors[j] = next(fresh)
+                report.chunks_embedded += 1
+        writer.put(p.doc, p.collection, p.chunks, vectors)
+        (report.added if p.is_new else report.updated).append(p.doc.id)
+    return sum(len(p.chunks) for p in group)

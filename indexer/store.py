@@ -1,0 +1,568 @@
+"""The on-disk index: its layout, the writer that changes it and the reader that serves it.
+
+Layout of an index folder (``SCHEMA_VERSION`` below)::
+
+    manifest.json          what built the index and which generation is current
+    sounding.db            SQLite: documents, chunks (text, metadata and vector)
+    vectors-<gen>.faiss    FAISS IndexIDMap2(IndexFlatIP) over the chunk vectors,
+                           keyed by the chunk ids SQLite assigns
+
+SQLite is the source of truth: every chunk row keeps its float32 vector, so
+the FAISS file is derived data that a writer (or a reader, in memory) can
+always rebuild. Chunk ids come from ``AUTOINCREMENT`` and are never reused,
+so a FAISS file one generation behind can only point at rows that are gone,
+never at the wrong row.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import sqlite3
+import threading
+import time
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import faiss
+import numpy as np
+import sqlite_utils
+
+from .chunking import Chunk, ChunkSettings
+from .documents import Document
+from .errors import IndexCorruptError, IndexMismatchError, IndexMissingError, IndexStoreError
+
+SCHEMA_VERSION = 1
+FORMAT = "sounding-index"
+MANIFEST = "manifest.json"
+DATABASE = "sounding.db"
+
+_SCHEMA = """
+CREATE TABLE IF NOT EXISTS documents (
+    id TEXT PRIMARY KEY,
+    collection TEXT NOT NULL,
+    title TEXT NOT NULL,
+    source TEXT NOT NULL,
+    kind TEXT NOT NULL,
+    modified REAL NOT NULL,
+    content_hash TEXT NOT NULL,
+    metadata TEXT NOT NULL DEFAULT '{}',
+    indexed_at REAL NOT NULL
+);
+CREATE INDEX IF NOT EXISTS documents_collection ON documents(collection);
+CREATE TABLE IF NOT EXISTS chunks (
+    id INTEGER PRIMARY KEY AUTOINCREMENT,
+    document_id TEXT NOT NULL REFERENCES documents(id) ON DELETE CASCADE,
+    ordinal INTEGER NOT NULL,
+    trail TEXT NOT NULL,
+    text TEXT NOT NULL,
+    page INTEGER,
+    tokens INTEGER NOT NULL,
+    embed_hash TEXT NOT NULL,
+    vector BLOB NOT NULL,
+    UNIQUE (document_id, ordinal)
+);
+CREATE INDEX IF NOT EXISTS chunks_document ON chunks(document_id);
+CREATE TABLE IF NOT EXISTS state (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+"""
+
+
+def vectors_filename(generation: int) -> str:
+    """Name of the FAISS file of one generation."""
+    return f"vectors-{generation}.faiss"
+
+
+@dataclass(frozen=True)
+class Manifest:
+    """What built an index; ``manifest.json`` on disk."""
+
+    model: dict[str, Any]
+    chunking: dict[str, int]
+    generation: int = 0
+    documents: int = 0
+    chunks: int = 0
+    updated_at: float = 0.0
+    schema_version: int = SCHEMA_VERSION
+
+    @property
+    def vectors_file(self) -> str:
+        return vectors_filename(self.generation)
+
+    def to_json(self) -> dict[str, Any]:
+        return {
+            "format": FORMAT,
+            "schema_version": self.schema_version,
+            "generation": self.generation,
+            "vectors_file": self.vectors_file,
+            "model": self.model,
+            "chunking": self.chunking,
+            "documents": self.documents,
+            "chunks": self.chunks,
+            "updated_at": self.updated_at,
+        }
+
+    @classmethod
+    def read(cls, index_dir: Path) -> Manifest:
+        """Read the manifest of ``index_dir``; IndexMissingError if there is none."""
+        path = index_dir / MANIFEST
+        if not path.is_file():
+            raise IndexMissingError(
+                f"no index at {index_dir} (no {MANIFEST}); build one with "
+                f"`sounding index PATH --index {index_dir}`"
+            )
+        try:
+            data = json.loads(path.read_text("utf-8"))
+        except (OSError, ValueError) as exc:
+            raise IndexCorruptError(f"cannot read {path}: {exc}") from exc
+        if data.get("format") != FORMAT:
+            raise IndexCorruptError(f"{path} is not a sounding index manifest")
+        if data.get("schema_version") != SCHEMA_VERSION:
+            raise IndexMismatchError(
+                f"index at {index_dir} has schema version {data.get('schema_version')}, this "
+                f"sounding reads version {SCHEMA_VERSION}; "
+                "rebuild it with `sounding index --rebuild`"
+            )
+        return cls(
+            model=data["model"],
+            chunking=data["chunking"],
+            generation=int(data["generation"]),
+            documents=int(data.get("documents", 0)),
+            chunks=int(data.get("chunks", 0)),
+            updated_at=float(data.get("updated_at", 0.0)),
+        )
+
+    def write(self, index_dir: Path) -> None:
+        """Write atomically: a reader sees the old manifest or the new one, never half."""
+        _atomic_write(index_dir / MANIFEST, json.dumps(self.to_json(), indent=2).encode())
+
+
+def _atomic_write(path: Path, data: bytes) -> None:
+    tmp = path.with_name(f".{path.name}.tmp")
+    with open(tmp, "wb") as fh:
+        fh.write(data)
+        fh.flush()
+        os.fsync(fh.fileno())
+    os.replace(tmp, path)
+
+
+def check_model(manifest: Manifest, model: dict[str, Any], index_dir: Path) -> None:
+    """Raise IndexMismatchError unless ``model`` is the encoder that built the index."""
+    built = manifest.model
+    if built.get("dimension") != model["dimension"] or built.get("fingerprint") != model[
+        "fingerprint"
+    ]:
+        raise IndexMismatchError(
+            f"index at {index_dir} was built with model '{built.get('name')}' "
+            f"({built.get('dimension')} dimensions, fingerprint {built.get('fingerprint')}) "
+            f"but the configured model is '{model['name']}' ({model['dimension']} dimensions, "
+            f"fingerprint {model['fingerprint']}); set SOUNDING_MODEL_PATH to the model that "
+            "built it, or rebuild with `sounding index --rebuild`"
+        )
+
+
+def check_chunking(manifest: Manifest, chunking: ChunkSettings, index_dir: Path) -> None:
+    """Raise IndexMismatchError unless the index was cut with ``chunking``."""
+    want = {"max_tokens": chunking.max_tokens, "overlap": chunking.overlap}
+    if manifest.chunking != want:
+        raise IndexMismatchError(
+            f"index at {index_dir} was chunked with chunk_tokens="
+            f"{manifest.chunking.get('max_tokens')}, "
+            f"chunk_overlap={manifest.chunking.get('overlap')}"
+            f" but the settings say chunk_tokens={chunking.max_tokens}, chunk_overlap="
+            f"{chunking.overlap}; re-chunk everything with `sounding index --rebuild` or use "
+            "another --index folder"
+        )
+
+
+def _connect(path: Path, *, readonly: bool) -> sqlite3.Connection:
+    if readonly:
+        conn = sqlite3.connect(f"{path.resolve().as_uri()}?mode=ro", uri=True,
+                               check_same_thread=False)
+    else:
+        conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
+        conn.execute("PRAGMA journal_mode=WAL")
+        conn.execute("PRAGMA synchronous=NORMAL")
+    conn.execute("PRAGMA foreign_keys=ON")
+    conn.execute("PRAGMA busy_timeout=10000")
+    conn.row_factory = sqlite3.Row
+    return conn
+
+
+def _vector_blob(vector: np.ndarray) -> bytes:
+    return np.ascontiguousarray(vector, dtype=np.float32).tobytes()
+
+
+def _flat_index(dimension: int) -> faiss.IndexIDMap2:
+    # Inner product on L2-normalised vectors is cosine similarity.
+    return faiss.IndexIDMap2(faiss.IndexFlatIP(dimension))
+
+
+def _index_ids(index: faiss.Index) -> np.ndarray:
+    return faiss.vector_to_array(index.id_map).astype(np.int64)
+
+
+def _load_vectors(conn: sqlite3.Connection, dimension: int, ids: Sequence[int] | None = None):
+    """Ids and an (n, d) float32 matrix of chunk vectors, all or only ``ids``."""
+    if ids is None:
+        rows = conn.execute("SELECT id, vector FROM chunks ORDER BY id").fetchall()
+    else:
+        rows = []
+        for start in range(0, len(ids), 900):
+            part = list(ids[start : start + 900])
+            marks = ",".join("?" * len(part))
+            rows += conn.execute(
+                f"SELECT id, vector FROM chunks WHERE id IN ({marks})", part
+            ).fetchall()
+    out_ids = np.fromiter((r[0] for r in rows), dtype=np.int64, count=len(rows))
+    matrix = np.empty((len(rows), dimension), dtype=np.float32)
+    for i, r in enumerate(rows):
+        matrix[i] = np.frombuffer(r[1], dtype=np.float32)
+    return out_ids, matrix
+
+
+class IndexWriter:
+    """Changes an index folder; only the indexer uses it.
+
+    Each document's rows change in one SQLite transaction, so a crash leaves
+    every document either as it was or as it is now. :meth:`publish` then
+    brings the FAISS file and the manifest up to date as a new generation.
+    """
+
+    def __init__(
+        self,
+        index_dir: Path,
+        model: dict[str, Any],
+        chunking: ChunkSettings,
+        *,
+        rebuild: bool = False,
+    ) -> None:
+        self.index_dir = Path(index_dir)
+        try:
+            # The index holds document text: readable by its owner only.
+            self.index_dir.mkdir(parents=True, exist_ok=True, mode=0o700)
+        except OSError as exc:
+            raise IndexStoreError(f"cannot create index folder {self.index_dir}: {exc}") from exc
+        self.model = model
+        self.chunking = chunking
+        self.dimension = int(model["dimension"])
+        try:
+            previous: Manifest | None = Manifest.read(self.index_dir)
+        except IndexMissingError:
+            previous = None
+        except IndexMismatchError:
+            if not rebuild:
+                raise
+            previous = None
+        if previous is not None and not rebuild:
+            check_model(previous, model, self.index_dir)
+            check_chunking(previous, chunking, self.index_dir)
+        self.previous = previous
+        db_path = self.index_dir / DATABASE
+        if rebuild and db_path.exists():
+            for suffix in ("", "-wal", "-shm"):
+                Path(f"{db_path}{suffix}").unlink(missing_ok=True)
+        try:
+            self.conn = _connect(db_path, readonly=False)
+            self.conn.executescript(_SCHEMA)
+        except sqlite3.Error as exc:
+            raise IndexStoreError(f"cannot open {db_path}: {exc}") from exc
+        self.db = sqlite_utils.Database(self.conn)
+
+    def close(self) -> None:
+        self.conn.close()
+
+    def __enter__(self) -> IndexWriter:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    def known(self) -> dict[str, tuple[str, str]]:
+        """Every stored document id with its (collection, content hash)."""
+        rows = self.conn.execute("SELECT id, collection, content_hash FROM documents")
+        return {r[0]: (r[1], r[2]) for r in rows}
+
+    def stored_vectors(self, document_id: str) -> dict[str, np.ndarray]:
+        """Vectors of a document's current chunks by embed hash, for reuse."""
+        rows = self.conn.execute(
+            "SELECT embed_hash, vector FROM chunks WHERE document_id = ?", [document_id]
+        )
+        return {r[0]: np.frombuffer(r[1], dtype=np.float32).copy() for r in rows}
+
+    def put(
+        self, doc: Document, collection: str, chunks: Sequence[Chunk], vectors: np.ndarray
+    ) -> None:
+        """Store ``doc`` and its chunks, replacing any earlier version, in one transaction."""
+        if len(chunks) != len(vectors):
+            raise ValueError("one vector per chunk")
+        if vectors.size and vectors.shape[1] != self.dimension:
+            raise IndexStoreError(
+                f"vectors have {vectors.shape[1]} dimensions, index has {self.dimension}"
+            )
+        with self.db.atomic():
+            self.conn.execute("DELETE FROM chunks WHERE document_id = ?", [doc.id])
+            self.db["documents"].upsert(
+                {
+                    "id": doc.id,
+                    "collection": collection,
+                    "title": doc.title,
+                    "source": doc.source,
+                    "kind": doc.kind,
+                    "modified": doc.modified,
+                    "content_hash": doc.content_hash,
+                    "metadata": json.dumps(doc.metadata, ensure_ascii=False, default=str),
+                    "indexed_at": time.time(),
+                },
+                pk="id",
+            )
+            self.db["chunks"].insert_all(
+                {
+                    "document_id": doc.id,
+                    "ordinal": c.ordinal,
+                    "trail": json.dumps(list(c.trail), ensure_ascii=False),
+                    "text": c.text,
+                    "page": c.page,
+                    "tokens": c.tokens,
+                    "embed_hash": c.embed_hash,
+                    "vector": _vector_blob(v),
+                }
+                for c, v in zip(chunks, vectors, strict=True)
+            )
+
+    def remove(self, document_ids: Iterable[str]) -> int:
+        """Delete documents (and by cascade their chunks); how many were deleted."""
+        ids = list(document_ids)
+        removed = 0
+        with self.db.atomic():
+            for start in range(0, len(ids), 900):
+                part = ids[start : start + 900]
+                marks = ",".join("?" * len(part))
+                removed += self.conn.execute(
+                    f"DELETE FROM documents WHERE id IN ({marks})", part
+                ).rowcount
+        return removed
+
+    def publish(self) -> Manifest:
+        """Write the FAISS file of a new generation, then the manifest that names it."""
+        generation = (self.previous.generation if self.previous else 0) + 1
+        index = self._updated_faiss()
+        target = self.index_dir / vectors_filename(generation)
+        tmp = target.with_name(f".{target.name}.tmp")
+        try:
+            faiss.write_index(index, str(tmp))
+            with open(tmp, "rb") as fh:
+                os.fsync(fh.fileno())
+            os.replace(tmp, target)
+        except (OSError, RuntimeError) as exc:
+            tmp.unlink(missing_ok=True)
+            raise IndexStoreError(f"cannot write {target}: {exc}") from exc
+        docs = self.conn.execute("SELECT count(*) FROM documents").fetchone()[0]
+        manifest = Manifest(
+            model=self.model,
+            chunking={"max_tokens": self.chunking.max_tokens, "overlap": self.chunking.overlap},
+            generation=generation,
+            documents=int(docs),
+            chunks=int(index.ntotal),
+            updated_at=time.time(),
+        )
+        manifest.write(self.index_dir)
+        self.conn.execute(
+            "INSERT OR REPLACE INTO state (key, value) VALUES ('generation', ?)", [str(generation)]
+        )
+        for old in self.index_dir.glob("vectors-*.faiss"):
+            if old.name != target.name:
+                old.unlink(missing_ok=True)
+        self.previous = manifest
+        return manifest
+
+    def _updated_faiss(self) -> faiss.IndexIDMap2:
+        """The previous generation's FAISS index brought in step with SQLite."""
+        index = None
+        if self.previous is not None:
+            path = self.index_dir / self.previous.vectors_file
+            if path.is_file():
+                try:
+                    index = faiss.read_index(str(path))
+                except RuntimeError:
+                    index = None  # unreadable: rebuilt from SQLite below
+            if index is not None and index.d != self.dimension:
+                index = None
+        if index is None:
+            index = _flat_index(self.dimension)
+            ids, matrix = _load_vectors(self.conn, self.dimension)
+            if len(ids):
+                index.add_with_ids(matrix, ids)
+            return index
+        have = _index_ids(index)
+        want = np.fromiter(
+            (r[0] for r in self.conn.execute("SELECT id FROM chunks")), dtype=np.int64
+        )
+        stale = np.setdiff1d(have, want, assume_unique=True)
+        if len(stale):
+            index.remove_ids(stale)
+        missing = np.setdiff1d(want, have, assume_unique=True)
+        if len(missing):
+            ids, matrix = _load_vectors(self.conn, self.dimension, missing.tolist())
+            index.add_with_ids(matrix, ids)
+        return index
+
+
+@dataclass(frozen=True)
+class ChunkRecord:
+    """One stored chunk, as readers get it."""
+
+    id: int
+    document_id: str
+    ordinal: int
+    trail: tuple[str, ...]
+    text: str
+    page: int | None
+    tokens: int
+
+
+@dataclass(frozen=True)
+class DocumentRecord:
+    """One stored document, as readers get it."""
+
+    id: str
+    collection: str
+    title: str
+    source: str
+    kind: str
+    modified: float
+    content_hash: str
+    metadata: dict[str, Any]
+    indexed_at: float
+
+
+def _chunk(row: sqlite3.Row) -> ChunkRecord:
+    return ChunkRecord(
+        id=row["id"],
+        document_id=row["document_id"],
+        ordinal=row["ordinal"],
+        trail=tuple(json.loads(row["trail"])),
+        text=row["text"],
+        page=row["page"],
+        tokens=row["tokens"],
+    )
+
+
+def _document(row: sqlite3.Row) -> DocumentRecord:
+    return DocumentRecord(
+        id=row["id"],
+        collection=row["collection"],
+        title=row["title"],
+        source=row["source"],
+        kind=row["kind"],
+        modified=row["modified"],
+        content_hash=row["content_hash"],
+        metadata=json.loads(row["metadata"]),
+        indexed_at=row["indexed_at"],
+    )
+
+
+_CHUNK_COLUMNS = "id, document_id, ordinal, trail, text, page, tokens"
+
+
+class IndexReader:
+    """Read-only view of one index generation: vectors in memory, rows from SQLite.
+
+    Safe to share between threads: FAISS searches are read-only and each
+    thread gets its own read-only SQLite connection.
+    """
+
+    def __init__(self, index_dir: Path, model: dict[str, Any] | None = None) -> None:
+        self.index_dir = Path(index_dir)
+        self.manifest = Manifest.read(self.index_dir)
+        if model is not None:
+            check_model(self.manifest, model, self.index_dir)
+        self.dimension = int(self.manifest.model["dimension"])
+        self._db_path = self.index_dir / DATABASE
+        if not self._db_path.is_file():
+            raise IndexCorruptError(
+                f"index at {self.index_dir} has a manifest but no {DATABASE}; "
+                "rebuild it with `sounding index --rebuild`"
+            )
+        self._local = threading.local()
+        vectors = self.index_dir / self.manifest.vectors_file
+        try:
+            self.vectors: faiss.Index = faiss.read_index(str(vectors))
+        except RuntimeError:
+            # A missing or unreadable vector file is derived data: rebuild it in memory.
+            self.vectors = _flat_index(self.dimension)
+            ids, matrix = _load_vectors(self._conn(), self.dimension)
+            if len(ids):
+                self.vectors.add_with_ids(matrix, ids)
+        if self.vectors.d != self.dimension:
+            raise IndexCorruptError(
+                f"{vectors} has {self.vectors.d} dimensions, the manifest says {self.dimension}; "
+                "rebuild the index with `sounding index --rebuild`"
+            )
+
+    def _conn(self) -> sqlite3.Connection:
+        conn = getattr(self._local, "conn", None)
+        if conn is None:
+            conn = _connect(self._db_path, readonly=True)
+            self._local.conn = conn
+        return conn
+
+    @property
+    def generation(self) -> int:
+        return self.manifest.generation
+
+    def counts(self) -> tuple[int, int]:
+        """(documents, chunks) in this generation."""
+        docs = self._conn().execute("SELECT count(*) FROM documents").fetchone()[0]
+        return int(docs), int(self.vectors.ntotal)
+
+    def search(self, queries: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+        """FAISS search: ``D`` scores and ``I`` chunk ids, shape (m, k); -1 pads."""
+        queries = np.ascontiguousarray(queries, dtype=np.float32)
+        if queries.ndim != 2 or queries.shape[1] != self.dimension:
+            raise ValueError(f"queries must have shape (m, {self.dimension})")
+        k = max(1, min(k, int(self.vectors.ntotal) or 1))
+        return self.vectors.search(queries, k)
+
+    def chunks(self, ids: Sequence[int]) -> dict[int, ChunkRecord]:
+        """Chunk records by id; ids no longer stored are left out."""
+        out: dict[int, ChunkRecord] = {}
+        ids = [int(i) for i in ids if i >= 0]
+        for start in range(0, len(ids), 900):
+            part = ids[start : start + 900]
+            marks = ",".join("?" * len(part))
+            for row in self._conn().execute(
+                f"SELECT {_CHUNK_COLUMNS} FROM chunks WHERE id IN ({marks})", part
+            ):
+                out[row["id"]] = _chunk(row)
+        return out
+
+    def documents(self, ids: Iterable[str]) -> dict[str, DocumentRecord]:
+        """Document records by id; unknown ids are left out."""
+        out: dict[str, DocumentRecord] = {}
+        ids = list(dict.fromkeys(ids))
+        for start in range(0, len(ids), 900):
+            part = ids[start : start + 900]
+            marks = ",".join("?" * len(part))
+            for row in self._conn().execute(
+                f"SELECT * FROM documents WHERE id IN ({marks})", part
+            ):
+                out[row["id"]] = _document(row)
+        return out
+
+    def document(self, document_id: str) -> DocumentRecord | None:
+        return self.documents([document_id]).get(document_id)
+
+    def document_chunks(self, document_id: str) -> list[ChunkRecord]:
+        rows = self._conn().execute(
+            f"SELECT {_CHUNK_COLUMNS} FROM chunks WHERE document_id = ? ORDER BY ordinal",
+            [document_id],
+        )
+        return [_chunk(r) for r in rows]
+
+    def close(self) -> None:
+        conn = getattr(self._local, "conn", None)
+        if conn is not None:
+            conn.close()
+            self._local.conn = None

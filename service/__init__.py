@@ -1,0 +1,1 @@
+"""sounding's REST service: reads the index the indexer writes and answers queries."""

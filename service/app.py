@@ -1,0 +1,81 @@
+"""The FastAPI application factory."""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+
+from indexer import __version__
+from indexer.embedding import Embedder
+from indexer.errors import QueryError, SoundingError
+
+from .engine import Engine
+from .routes import documents, health, search
+from .settings import ServiceSettings
+
+log = logging.getLogger("sounding.service")
+
+
+def create_app(
+    settings: ServiceSettings | None = None, embedder: Embedder | None = None
+) -> FastAPI:
+    """Build the app. The encoder and index load once, when the app starts.
+
+    ``embedder`` lets tests pass a seeded fake instead of the real encoder.
+    """
+    settings = settings or ServiceSettings()
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        enc = embedder if embedder is not None else settings.embedder()
+        enc.encode(["warm-up"])  # load weights now, not on the first user's query
+        app.state.engine = Engine(settings.index_dir, enc, settings.reload_check_seconds)
+        yield
+
+    app = FastAPI(
+        title="sounding",
+        version=__version__,
+        summary="Meaning-based search over a team's documents, with cited passages.",
+        lifespan=lifespan,
+    )
+    app.state.settings = settings
+    for module in (search, documents, health):
+        app.include_router(module.router)
+
+    @app.exception_handler(RequestValidationError)
+    async def invalid_request(request: Request, exc: RequestValidationError) -> JSONResponse:
+        # One readable line first, then FastAPI's usual list for programs.
+        reasons = "; ".join(
+            f"{'.'.join(str(p) for p in e.get('loc', ()) if p != 'body') or 'body'}: {e.get('msg')}"
+            for e in exc.errors()
+        )
+        return JSONResponse(
+            status_code=422,
+            content={"detail": f"invalid request: {reasons}", "errors": _plain(exc.errors())},
+        )
+
+    @app.exception_handler(QueryError)
+    async def bad_query(request: Request, exc: QueryError) -> JSONResponse:
+        return JSONResponse(status_code=422, content={"detail": str(exc)})
+
+    @app.exception_handler(SoundingError)
+    async def sounding_error(request: Request, exc: SoundingError) -> JSONResponse:
+        return JSONResponse(status_code=503, content={"detail": str(exc)})
+
+    return app
+
+
+def _plain(errors: object) -> object:
+    """Validation errors with any non-JSON values (exceptions in ctx) made strings."""
+    if isinstance(errors, dict):
+        return {k: _plain(v) for k, v in errors.items()}
+    if isinstance(errors, list | tuple):
+        return [_plain(v) for v in errors]
+    if isinstance(errors, str | int | float | bool) or errors is None:
+        return errors
+    return str(errors)

@@ -1,0 +1,83 @@
+"""The service's loaded resources: one encoder, and the current index generation."""
+
+from __future__ import annotations
+
+import logging
+import threading
+import time
+from pathlib import Path
+
+from indexer.embedding import Embedder
+from indexer.errors import IndexStoreError, SoundingError
+from indexer.search import Searcher
+from indexer.store import MANIFEST, IndexReader
+
+log = logging.getLogger("sounding.service")
+
+
+class Engine:
+    """Holds a :class:`Searcher` over the newest complete index generation.
+
+    The indexer publishes a generation by replacing ``manifest.json``
+    atomically; the engine notices the change (checking at most every
+    ``check_seconds``) and swaps in a reader of the new generation. Requests
+    already running keep the searcher they started with.
+    """
+
+    def __init__(self, index_dir: Path, embedder: Embedder, check_seconds: float = 2.0) -> None:
+        self.index_dir = Path(index_dir)
+        self.embedder = embedder
+        self.check_seconds = check_seconds
+        self._searcher: Searcher | None = None
+        self._stamp: tuple[int, int] | None = None
+        self._checked = 0.0
+        self._lock = threading.Lock()
+        self.error: str | None = None
+        self._load()
+
+    def _manifest_stamp(self) -> tuple[int, int] | None:
+        try:
+            st = (self.index_dir / MANIFEST).stat()
+        except OSError:
+            return None
+        return (st.st_mtime_ns, st.st_ino)
+
+    def _load(self) -> None:
+        stamp = self._manifest_stamp()
+        try:
+            searcher = Searcher(IndexReader(self.index_dir), self.embedder)
+        except SoundingError as exc:
+            # Keep serving the generation we have; report why the new one is not used.
+            self.error = str(exc)
+            if self._searcher is None:
+                log.warning("no index loaded: %s", exc)
+            else:
+                log.error("keeping generation %s: %s", self._searcher.reader.generation, exc)
+            self._stamp = stamp
+            return
+        old = self._searcher
+        self._searcher, self._stamp, self.error = searcher, stamp, None
+        docs, chunks = searcher.reader.counts()
+        log.info(
+            "index generation %s loaded: %s documents, %s chunks",
+            searcher.reader.generation, docs, chunks,
+        )
+        del old  # its connections close when the last request using it ends
+
+    def current(self) -> Searcher | None:
+        """The searcher of the newest loaded generation, or None if there is no index."""
+        now = time.monotonic()
+        if now - self._checked >= self.check_seconds:
+            with self._lock:
+                if now - self._checked >= self.check_seconds:
+                    self._checked = now
+                    if self._manifest_stamp() != self._stamp:
+                        self._load()
+        return self._searcher
+
+    def require(self) -> Searcher:
+        """The current searcher; IndexStoreError when no index is loaded."""
+        searcher = self.current()
+        if searcher is None:
+            raise IndexStoreError(self.error or f"no index loaded from {self.index_dir}")
+        return searcher

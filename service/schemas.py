@@ -1,0 +1,85 @@
+"""Request and response bodies of the REST API."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from pydantic import BaseModel, ConfigDict, Field
+
+
+class SearchRequest(BaseModel):
+    """A query for ranked passages."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    query: str = Field(..., min_length=1, description="What to look for, in plain words.")
+    k: int = Field(10, ge=1, description="How many passages to return (at most the max_k setting).")
+    max_per_document: int | None = Field(
+        None, ge=1, description="Most passages from any one document; no cap when left out."
+    )
+
+
+class Passage(BaseModel):
+    """One ranked passage and where it comes from."""
+
+    rank: int
+    score: float = Field(description="Cosine similarity of query and passage, -1 to 1.")
+    chunk_id: int
+    document_id: str
+    collection: str
+    title: str
+    source: str
+    trail: list[str] = Field(description="Headings above the passage, outermost first.")
+    text: str
+    page: int | None = Field(None, description="1-based page, for PDFs.")
+
+
+class SearchResponse(BaseModel):
+    query: str
+    k: int
+    generation: int = Field(description="Index generation that answered.")
+    took_ms: float = Field(description="Time spent answering, in milliseconds.")
+    results: list[Passage]
+
+
+class ChunkOut(BaseModel):
+    chunk_id: int
+    ordinal: int
+    trail: list[str]
+    text: str
+    page: int | None
+    tokens: int
+
+
+class DocumentResponse(BaseModel):
+    id: str
+    collection: str
+    title: str
+    source: str
+    kind: str
+    modified: float = Field(description="File modification time, Unix seconds.")
+    content_hash: str
+    indexed_at: float
+    metadata: dict[str, Any]
+    chunks: list[ChunkOut]
+
+
+class ModelInfo(BaseModel):
+    name: str
+    dimension: int
+    fingerprint: str
+    max_tokens: int
+
+
+class HealthResponse(BaseModel):
+    status: str = Field(description="'ok', or 'no-index' when no index is loaded.")
+    index_loaded: bool
+    generation: int | None
+    documents: int
+    chunks: int
+    model: ModelInfo
+    detail: str | None = Field(None, description="Why no index is loaded, when none is.")
+
+
+class ErrorResponse(BaseModel):
+    detail: str

@@ -1,0 +1,25 @@
+"""Settings of the REST service, from the environment (prefix ``SOUNDING_``)."""
+
+from __future__ import annotations
+
+from pydantic import Field
+
+from indexer.settings import IndexSettings
+
+
+class ServiceSettings(IndexSettings):
+    """Index settings plus where the service listens and what it accepts.
+
+    The default host is loopback on purpose: anyone who can reach the port
+    can read every indexed passage. Bind to another address only behind the
+    access rules your organisation requires.
+    """
+
+    host: str = Field("127.0.0.1", description="Address to listen on; loopback by default.")
+    port: int = Field(8757, ge=1, le=65535, description="TCP port to listen on.")
+    max_query_chars: int = Field(1000, ge=1, description="Longest query accepted, in characters.")
+    max_k: int = Field(100, ge=1, le=1000, description="Most passages one search may ask for.")
+    reload_check_seconds: float = Field(
+        2.0, ge=0, description="How often the service looks for a newer index generation."
+    )
+    log_level: str = Field("info", description="uvicorn log level.")

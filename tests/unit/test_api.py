@@ -1,0 +1,160 @@
+"""The REST API over a real uvicorn server, with a seeded fake encoder."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import httpx
+import pytest
+
+from indexer.build import refresh_index
+from indexer.embedding import HashingEmbedder
+from service.app import create_app
+from service.settings import ServiceSettings
+from tests.serving import running
+
+PAGES = {
+    "runbooks/reservoir-valve.md": (
+        "---\ntitle: Reservoir valve replacement\ntags: [runbook, valves]\n---\n"
+        "# Reservoir valve replacement\n\n## Isolation\n\nClose the upstream gate before "
+        "unbolting the flange.\n\n## Testing\n\nOpen slowly and watch the pressure gauge.\n"
+    ),
+    "hr/cycling.md": (
+        "# Cycling allowance\n\nStaff who cycle to the depot claim a monthly allowance.\n"
+    ),
+    "notes/kiosk.txt": (
+        "Kiosk printer notes\n\nThe kiosk printer jams when the paper tray is overfilled.\n"
+    ),
+}
+
+
+def write_pages(root: Path, pages: dict[str, str]) -> None:
+    for rel, text in pages.items():
+        path = root / rel
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text(text)
+
+
+@pytest.fixture(scope="module")
+def wiki(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, ServiceSettings, HashingEmbedder]:
+    root = tmp_path_factory.mktemp("wiki")
+    write_pages(root, PAGES)
+    settings = ServiceSettings(
+        index_dir=root.parent / f"{root.name}-index", max_k=20, max_query_chars=200,
+        reload_check_seconds=0,
+    )
+    embedder = HashingEmbedder(32, seed=1)
+    refresh_index([root], settings, embedder)
+    return root, settings, embedder
+
+
+@pytest.fixture(scope="module")
+def base(wiki) -> str:
+    _, settings, embedder = wiki
+    with running(create_app(settings, embedder=embedder)) as url:
+        yield url
+
+
+def test_search_returns_ranked_passages_with_their_origin(base: str) -> None:
+    r = httpx.post(f"{base}/search", json={"query": "unbolting the flange gate", "k": 3})
+    assert r.status_code == 200
+    body = r.json()
+    assert body["k"] == 3 and body["generation"] == 1 and body["took_ms"] >= 0
+    top = body["results"][0]
+    assert top["document_id"] == "runbooks/reservoir-valve.md"
+    assert top["title"] == "Reservoir valve replacement"
+    assert top["trail"] == ["Isolation"]
+    assert "flange" in top["text"] and top["source"].endswith("reservoir-valve.md")
+    assert [p["rank"] for p in body["results"]] == list(range(1, len(body["results"]) + 1))
+    scores = [p["score"] for p in body["results"]]
+    assert scores == sorted(scores, reverse=True) and all(-1.0001 <= s <= 1.0001 for s in scores)
+
+
+def test_max_per_document_caps_passages_of_one_document(base: str) -> None:
+    r = httpx.post(
+        f"{base}/search", json={"query": "reservoir valve", "k": 10, "max_per_document": 1}
+    )
+    ids = [p["document_id"] for p in r.json()["results"]]
+    assert len(ids) == len(set(ids)) == 3
+
+
+@pytest.mark.parametrize(
+    ("body", "status", "reason"),
+    [
+        ({"query": ""}, 422, "query"),
+        ({"query": "   "}, 422, "empty"),
+        ({"query": "valve", "k": 0}, 422, "k"),
+        ({"query": "valve", "k": 21}, 422, "max_k"),
+        ({"query": "valve", "k": "many"}, 422, "k"),
+        ({"query": "x" * 201}, 422, "max_query_chars"),
+        ({"query": "valve", "colour": "blue"}, 422, "colour"),
+        ({"k": 3}, 422, "query"),
+        ({"query": ["a", "b"]}, 422, "query"),
+        ([1, 2], 422, "body"),
+    ],
+)
+def test_bad_search_requests_get_a_4xx_with_a_reason(base: str, body, status, reason) -> None:
+    r = httpx.post(f"{base}/search", json=body)
+    assert r.status_code == status
+    assert reason in r.json()["detail"]
+
+
+@pytest.mark.parametrize(
+    "raw", [b"{not json", b"", b"\xff\xfe", b'{"query": "a"' ]
+)
+def test_malformed_json_is_a_422(base: str, raw: bytes) -> None:
+    r = httpx.post(f"{base}/search", content=raw, headers={"content-type": "application/json"})
+    assert r.status_code == 422
+    assert r.json()["detail"].startswith("invalid request")
+
+
+def test_document_by_id_with_slashes(base: str) -> None:
+    r = httpx.get(f"{base}/documents/runbooks/reservoir-valve.md")
+    assert r.status_code == 200
+    doc = r.json()
+    assert doc["metadata"]["tags"] == ["runbook", "valves"]
+    assert doc["kind"] == "markdown" and doc["collection"]
+    assert [c["trail"] for c in doc["chunks"]] == [["Isolation"], ["Testing"]]
+    assert all(c["tokens"] > 0 for c in doc["chunks"])
+
+
+def test_unknown_document_is_404(base: str) -> None:
+    r = httpx.get(f"{base}/documents/runbooks/none.md")
+    assert r.status_code == 404 and "runbooks/none.md" in r.json()["detail"]
+
+
+def test_health_reports_index_and_model(base: str) -> None:
+    h = httpx.get(f"{base}/health").json()
+    assert h["status"] == "ok" and h["index_loaded"] is True
+    assert (h["documents"], h["chunks"]) == (3, 4)
+    assert h["model"]["name"] == "hashing-32" and h["model"]["dimension"] == 32
+
+
+def test_openapi_schema_lists_every_endpoint(base: str) -> None:
+    paths = httpx.get(f"{base}/openapi.json").json()["paths"]
+    assert {"/search", "/documents/{document_id}", "/health"} <= set(paths)
+
+
+def test_service_without_an_index_says_why(tmp_path: Path) -> None:
+    settings = ServiceSettings(index_dir=tmp_path / "none")
+    with running(create_app(settings, embedder=HashingEmbedder(32))) as url:
+        h = httpx.get(f"{url}/health").json()
+        assert h["status"] == "no-index" and "sounding index" in h["detail"]
+        r = httpx.post(f"{url}/search", json={"query": "valve"})
+        assert r.status_code == 503 and "no index" in r.json()["detail"]
+
+
+def test_running_service_switches_to_a_new_generation(tmp_path: Path) -> None:
+    root = tmp_path / "wiki"
+    write_pages(root, PAGES)
+    settings = ServiceSettings(index_dir=tmp_path / "idx", reload_check_seconds=0)
+    embedder = HashingEmbedder(32, seed=1)
+    refresh_index([root], settings, embedder)
+    with running(create_app(settings, embedder=embedder)) as url:
+        assert httpx.get(f"{url}/health").json()["documents"] == 3
+        write_pages(root, {"hr/bikes.md": "# Bike shed\n\nThe bike shed code is on the board.\n"})
+        refresh_index([root], settings, embedder)
+        h = httpx.get(f"{url}/health").json()
+        assert (h["documents"], h["generation"]) == (4, 2)
+        r = httpx.post(f"{url}/search", json={"query": "bike shed code", "k": 1})
+        assert r.json()["results"][0]["document_id"] == "hr/bikes.md"
