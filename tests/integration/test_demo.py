@@ -1,0 +1,134 @@
+"""The bundled demo wiki, indexed with the real encoder and queried over real HTTP."""
+
+from __future__ import annotations
+
+import json
+import sqlite3
+from pathlib import Path
+
+import httpx
+import numpy as np
+import pytest
+
+from indexer.build import refresh_index
+from service.app import create_app
+from service.settings import ServiceSettings
+from tests.conftest import DEMO_CORPUS
+from tests.integration.stopwords import content_words
+from tests.serving import running
+
+pytestmark = pytest.mark.slow
+
+QUESTIONS = json.loads((Path(__file__).parent / "demo_questions.json").read_text("utf-8"))
+
+
+class CountingEmbedder:
+    """Wraps an encoder and counts how often, and on how many texts, it is called."""
+
+    def __init__(self, inner) -> None:
+        self.inner = inner
+        self.calls = 0
+        self.texts = 0
+
+    def __getattr__(self, name: str):
+        return getattr(self.inner, name)
+
+    def encode(self, texts) -> np.ndarray:
+        self.calls += 1
+        self.texts += len(texts)
+        return self.inner.encode(texts)
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory: pytest.TempPathFactory, real_embedder):
+    settings = ServiceSettings(index_dir=tmp_path_factory.mktemp("demo") / "index")
+    report = refresh_index([DEMO_CORPUS], settings, real_embedder)
+    return settings, report
+
+
+@pytest.fixture(scope="module")
+def base(demo, real_embedder) -> str:
+    settings, _ = demo
+    with running(create_app(settings, embedder=real_embedder)) as url:
+        yield url
+
+
+def document_text(base: str, doc_id: str) -> str:
+    doc = httpx.get(f"{base}/documents/{doc_id}").json()
+    meta = " ".join(str(v) for v in doc["metadata"].values())
+    trails = " ".join(" ".join(c["trail"]) for c in doc["chunks"])
+    return " ".join([doc["title"], meta, trails, *(c["text"] for c in doc["chunks"])])
+
+
+def test_every_demo_file_is_indexed(demo) -> None:
+    _, report = demo
+    files = [p for p in DEMO_CORPUS.rglob("*") if p.is_file()]
+    assert 40 <= len(files) <= 80
+    assert report.skipped == [] and report.documents == len(files)
+    kinds = {p.suffix for p in files}
+    assert {".md", ".html", ".pdf", ".txt"} <= kinds
+    assert sum(p.suffix == ".pdf" for p in files) >= 2
+    assert sum(p.suffix == ".html" for p in files) >= 2
+
+
+def test_there_are_enough_questions_and_paraphrases() -> None:
+    assert len(QUESTIONS) >= 15
+    assert sum(q["paraphrase"] for q in QUESTIONS) * 3 >= len(QUESTIONS)
+
+
+@pytest.mark.parametrize(
+    "q", [q for q in QUESTIONS if q["paraphrase"]], ids=lambda q: q["question"][:40]
+)
+def test_paraphrase_questions_share_no_content_word_with_their_answer(base: str, q) -> None:
+    for doc_id in q["expected"]:
+        shared = content_words(q["question"]) & content_words(document_text(base, doc_id))
+        assert shared == set(), f"{doc_id} shares {shared}"
+
+
+@pytest.mark.parametrize("q", QUESTIONS, ids=lambda q: q["question"][:40])
+def test_expected_document_is_in_the_top_five(base: str, q) -> None:
+    r = httpx.post(
+        f"{base}/search", json={"query": q["question"], "k": 5, "max_per_document": 1}
+    )
+    assert r.status_code == 200
+    top = [p["document_id"] for p in r.json()["results"]]
+    assert set(q["expected"]) & set(top), f"expected {q['expected']}, got {top}"
+
+
+def test_chunks_fit_the_encoder_with_the_real_tokenizer(demo, real_embedder) -> None:
+    settings, _ = demo
+    conn = sqlite3.connect(settings.index_dir / "sounding.db")
+    rows = conn.execute("SELECT c.text, c.trail, c.tokens, d.title FROM chunks c "
+                        "JOIN documents d ON d.id = c.document_id").fetchall()
+    assert len(rows) > 100
+    # all-MiniLM-L6-v2's max_seq_length is 256 word pieces (its sentence_bert_config.json).
+    assert max(r[2] for r in rows) <= 256 == real_embedder.max_tokens
+    tok = real_embedder.model.tokenizer
+    for text, trail, tokens, title in rows:
+        trail_text = " > ".join(json.loads(trail))
+        embedded = "\n".join(p for p in (title, trail_text) if p) + "\n" + text
+        assert len(tok(embedded)["input_ids"]) <= 256
+
+
+def test_pdf_passages_keep_their_page(base: str) -> None:
+    r = httpx.post(
+        f"{base}/search",
+        json={"query": "hotel nightly limit on business travel", "k": 10},
+    ).json()
+    pdf = [p for p in r["results"] if p["document_id"].endswith(".pdf")]
+    assert pdf and all(isinstance(p["page"], int) and p["page"] >= 1 for p in pdf)
+
+
+def test_html_boilerplate_is_not_indexed(base: str) -> None:
+    for path in DEMO_CORPUS.rglob("*.html"):
+        doc = httpx.get(f"{base}/documents/{path.relative_to(DEMO_CORPUS).as_posix()}").json()
+        text = " ".join(c["text"] for c in doc["chunks"])
+        assert "<" not in text and "function(" not in text and "{" not in text
+
+
+def test_reindexing_the_unchanged_corpus_embeds_nothing(demo, real_embedder) -> None:
+    settings, first = demo
+    counting = CountingEmbedder(real_embedder)
+    report = refresh_index([DEMO_CORPUS], settings, counting)
+    assert counting.calls == 0 and counting.texts == 0
+    assert report.unchanged == first.documents and report.chunks == first.chunks
