@@ -1,18 +1,33 @@
-"""Ranking over a loaded index: queries in, ranked passages out."""
+"""Ranking over a loaded index: queries in, ranked passages or documents out.
+
+Three modes: ``dense`` (cosine similarity of encoder vectors, FAISS),
+``lexical`` (BM25 over the chunks, SQLite FTS5) and ``hybrid`` (both fused by
+reciprocal rank, the default).
+"""
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 from functools import cached_property
+from typing import Literal
 
 from .embedding import Embedder, describe
 from .errors import QueryError
+from .fusion import RRF_K, reciprocal_rank_fusion
+from .lexical import fts5_query
 from .store import IndexReader, check_model
+
+Mode = Literal["dense", "lexical", "hybrid"]
+MODES: tuple[Mode, ...] = ("dense", "lexical", "hybrid")
+
+# Candidates each ranking contributes to a fusion, at the least.
+_FUSION_DEPTH = 100
 
 
 @dataclass(frozen=True)
 class Hit:
-    """One ranked passage."""
+    """One ranked passage. ``score`` is cosine (dense), BM25 (lexical) or RRF (hybrid)."""
 
     rank: int
     score: float
@@ -26,13 +41,21 @@ class Hit:
     page: int | None
 
 
+def check_mode(mode: str) -> Mode:
+    """``mode`` if it is one of MODES, else QueryError naming the choices."""
+    if mode not in MODES:
+        raise QueryError(f"mode={mode!r} is not one of {', '.join(MODES)}")
+    return mode  # type: ignore[return-value]
+
+
 class Searcher:
     """Answers queries against one :class:`IndexReader` with one encoder."""
 
-    def __init__(self, reader: IndexReader, embedder: Embedder) -> None:
+    def __init__(self, reader: IndexReader, embedder: Embedder, *, rrf_k: int = RRF_K) -> None:
         check_model(reader.manifest, describe(embedder), reader.index_dir)
         self.reader = reader
         self.embedder = embedder
+        self.rrf_k = rrf_k
 
     @cached_property
     def _chunk_document(self) -> dict[int, str]:
@@ -40,25 +63,59 @@ class Searcher:
         rows = self.reader._conn().execute("SELECT id, document_id FROM chunks")
         return {int(r[0]): r[1] for r in rows}
 
+    # -- chunk rankings -------------------------------------------------------
+
+    def _dense(self, queries: Sequence[str], depth: int) -> list[list[tuple[int, float]]]:
+        D, I = self.reader.search(self.embedder.encode(list(queries)), depth)
+        return [
+            [(int(i), float(s)) for s, i in zip(d, ids, strict=True) if i >= 0]
+            for d, ids in zip(D, I, strict=True)
+        ]
+
+    def _lexical(self, query: str, depth: int) -> list[tuple[int, float]]:
+        match = fts5_query(query)
+        if match is None:
+            return []
+        scores, ids = self.reader.lexical(match, depth)
+        return list(zip(ids.tolist(), scores.tolist(), strict=True))
+
+    def ranked_chunks(self, query: str, depth: int, mode: Mode) -> list[tuple[int, float]]:
+        """(chunk id, score) pairs, best first, at most ``depth`` of them."""
+        if mode == "dense":
+            return self._dense([query], depth)[0]
+        if mode == "lexical":
+            return self._lexical(query, depth)
+        pool = max(depth, _FUSION_DEPTH)
+        dense = [c for c, _ in self._dense([query], pool)[0]]
+        lexical = [c for c, _ in self._lexical(query, pool)]
+        return reciprocal_rank_fusion([dense, lexical], k=self.rrf_k)[:depth]
+
+    # -- passages -------------------------------------------------------------
+
     def search(
-        self, query: str, k: int = 10, *, max_per_document: int | None = None
+        self,
+        query: str,
+        k: int = 10,
+        *,
+        mode: str = "hybrid",
+        max_per_document: int | None = None,
     ) -> list[Hit]:
-        """The ``k`` passages most similar to ``query``, best first."""
+        """The ``k`` passages that best match ``query``, best first."""
+        mode = check_mode(mode)
         query = query.strip()
         if not query:
             raise QueryError("the query is empty; send some words to search for")
         if k < 1:
             raise QueryError(f"k={k} must be 1 or more")
-        # Ask FAISS for more than k when passages per document are capped.
+        # Dig deeper than k when passages per document are capped.
         depth = k if max_per_document is None else k * 4 + 32
-        D, I = self.reader.search(self.embedder.encode([query]), depth)
-        ids = [int(i) for i in I[0] if i >= 0]
-        chunks = self.reader.chunks(ids)
+        ranked = self.ranked_chunks(query, depth, mode)
+        chunks = self.reader.chunks([c for c, _ in ranked])
         docs = self.reader.documents(c.document_id for c in chunks.values())
         hits: list[Hit] = []
         per_doc: dict[str, int] = {}
-        for score, cid in zip(D[0], I[0], strict=True):
-            chunk = chunks.get(int(cid))
+        for cid, score in ranked:
+            chunk = chunks.get(cid)
             doc = docs.get(chunk.document_id) if chunk else None
             if chunk is None or doc is None:
                 continue  # removed after this generation's vectors were written
@@ -84,28 +141,54 @@ class Searcher:
                 break
         return hits
 
-    def rank_documents(self, queries: list[str], k: int = 100) -> list[list[tuple[str, float]]]:
-        """For each query, up to ``k`` documents scored by their best chunk.
+    # -- documents (evaluation) -----------------------------------------------
 
-        Used by evaluation, where judgments are per document.
+    def _best_per_document(
+        self, ranked: list[tuple[int, float]], k: int
+    ) -> list[tuple[str, float]]:
+        """Documents scored by their best chunk, best first, at most ``k``."""
+        chunk_doc = self._chunk_document
+        best: dict[str, float] = {}
+        for cid, score in ranked:
+            doc = chunk_doc.get(cid)
+            if doc is not None and doc not in best:
+                best[doc] = score
+                if len(best) == k:
+                    break
+        return list(best.items())
+
+    def rank_documents(
+        self, queries: list[str], k: int = 100, *, mode: str = "dense"
+    ) -> list[list[tuple[str, float]]]:
+        """For each query, up to ``k`` (document id, score) pairs, best first.
+
+        A document scores as its best chunk. Hybrid fuses the dense and the
+        lexical document rankings by reciprocal rank. Judgments are per
+        document, so this is what evaluation ranks.
         """
+        mode = check_mode(mode)
         if not queries:
             return []
-        vectors = self.embedder.encode(queries)
-        chunk_doc = self._chunk_document
-        n = len(chunk_doc)
         # Several chunks of one document can rank together; dig deep enough to
         # still find k distinct documents.
-        depth = min(n, max(k * 10, 1000))
-        D, I = self.reader.search(vectors, depth)
-        out: list[list[tuple[str, float]]] = []
-        for scores, ids in zip(D, I, strict=True):
-            best: dict[str, float] = {}
-            for s, cid in zip(scores.tolist(), ids.tolist(), strict=True):
-                doc = chunk_doc.get(cid)
-                if doc is not None and doc not in best:
-                    best[doc] = s
-                    if len(best) == k:
-                        break
-            out.append(list(best.items()))
-        return out
+        depth = min(max(len(self._chunk_document), 1), max(k * 10, 1000))
+        dense: list[list[tuple[str, float]]] = []
+        lexical: list[list[tuple[str, float]]] = []
+        if mode in ("dense", "hybrid"):
+            for start in range(0, len(queries), 256):
+                for ranked in self._dense(queries[start : start + 256], depth):
+                    dense.append(self._best_per_document(ranked, max(k, _FUSION_DEPTH)))
+        if mode in ("lexical", "hybrid"):
+            lexical = [
+                self._best_per_document(self._lexical(q, depth), max(k, _FUSION_DEPTH))
+                for q in queries
+            ]
+        if mode == "dense":
+            return [r[:k] for r in dense]
+        if mode == "lexical":
+            return [r[:k] for r in lexical]
+        return [
+            reciprocal_rank_fusion([[d for d, _ in a], [d for d, _ in b]], k=self.rrf_k)[:k]
+            for a, b in zip(dense, lexical, strict=True)
+        ]
+

@@ -34,6 +34,9 @@ class IndexSettings(BaseSettings):
     )
     chunk_overlap: int = Field(32, description="Word pieces shared by consecutive windows.")
     batch_size: int = Field(32, ge=1, le=4096, description="Texts per encoder batch.")
+    rrf_k: int = Field(
+        60, ge=0, description="k of reciprocal rank fusion in hybrid mode (Cormack et al. 2009)."
+    )
     max_file_bytes: int = Field(
         50 * 2**20, ge=1, description="Files larger than this are skipped with a reason."
     )

@@ -3,7 +3,8 @@
 Layout of an index folder (``SCHEMA_VERSION`` below)::
 
     manifest.json          what built the index and which generation is current
-    sounding.db            SQLite: documents, chunks (text, metadata and vector)
+    sounding.db            SQLite: documents, chunks (text, metadata and vector),
+                           chunks_fts (FTS5, BM25 over title + trail + text)
     vectors-<gen>.faiss    FAISS IndexIDMap2(IndexFlatIP) over the chunk vectors,
                            keyed by the chunk ids SQLite assigns
 
@@ -66,6 +67,11 @@ CREATE TABLE IF NOT EXISTS chunks (
 );
 CREATE INDEX IF NOT EXISTS chunks_document ON chunks(document_id);
 CREATE TABLE IF NOT EXISTS state (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+-- BM25 over each chunk's title, heading trail and text; rowid = chunks.id.
+-- Porter stemming over unicode61 words, so "restores" matches "restore".
+CREATE VIRTUAL TABLE IF NOT EXISTS chunks_fts USING fts5(
+    body, tokenize = 'porter unicode61 remove_diacritics 2'
+);
 """
 
 
@@ -190,6 +196,11 @@ def _connect(path: Path, *, readonly: bool) -> sqlite3.Connection:
     return conn
 
 
+def lexical_body(title: str, trail: Sequence[str], text: str) -> str:
+    """What the BM25 index holds for a chunk: the same fields the encoder sees."""
+    return "\n".join(p for p in (title, " > ".join(trail), text) if p)
+
+
 def _vector_blob(vector: np.ndarray) -> bytes:
     return np.ascontiguousarray(vector, dtype=np.float32).tobytes()
 
@@ -302,6 +313,7 @@ class IndexWriter:
                 f"vectors have {vectors.shape[1]} dimensions, index has {self.dimension}"
             )
         with self.db.atomic():
+            self._drop_fts("SELECT id FROM chunks WHERE document_id = ?", [doc.id])
             self.conn.execute("DELETE FROM chunks WHERE document_id = ?", [doc.id])
             self.db["documents"].upsert(
                 {
@@ -330,6 +342,12 @@ class IndexWriter:
                 }
                 for c, v in zip(chunks, vectors, strict=True)
             )
+            # The lexical index changes in the same transaction as the chunks.
+            self.conn.executemany(
+                "INSERT INTO chunks_fts (rowid, body) SELECT id, ? FROM chunks "
+                "WHERE document_id = ? AND ordinal = ?",
+                [(lexical_body(doc.title, c.trail, c.text), doc.id, c.ordinal) for c in chunks],
+            )
 
     def remove(self, document_ids: Iterable[str]) -> int:
         """Delete documents (and by cascade their chunks); how many were deleted."""
@@ -339,10 +357,15 @@ class IndexWriter:
             for start in range(0, len(ids), 900):
                 part = ids[start : start + 900]
                 marks = ",".join("?" * len(part))
+                self._drop_fts(f"SELECT id FROM chunks WHERE document_id IN ({marks})", part)
                 removed += self.conn.execute(
                     f"DELETE FROM documents WHERE id IN ({marks})", part
                 ).rowcount
         return removed
+
+    def _drop_fts(self, select_ids: str, params: Sequence[object]) -> None:
+        """Delete the FTS rows of the chunks that ``select_ids`` selects."""
+        self.conn.execute(f"DELETE FROM chunks_fts WHERE rowid IN ({select_ids})", list(params))
 
     def publish(self) -> Manifest:
         """Write the FAISS file of a new generation, then the manifest that names it."""
@@ -524,6 +547,21 @@ class IndexReader:
             raise ValueError(f"queries must have shape (m, {self.dimension})")
         k = max(1, min(k, int(self.vectors.ntotal) or 1))
         return self.vectors.search(queries, k)
+
+    def lexical(self, match: str, k: int) -> tuple[np.ndarray, np.ndarray]:
+        """BM25 search of the chunks: scores (higher is better) and chunk ids, best first.
+
+        ``match`` must be a safe FTS5 expression (see :mod:`indexer.lexical`).
+        """
+        rows = self._conn().execute(
+            "SELECT rowid, bm25(chunks_fts) FROM chunks_fts WHERE chunks_fts MATCH ? "
+            "ORDER BY bm25(chunks_fts) LIMIT ?",
+            [match, int(k)],
+        ).fetchall()
+        # FTS5's bm25() is negative, more negative is better; flip it for callers.
+        scores = np.fromiter((-r[1] for r in rows), dtype=np.float32, count=len(rows))
+        ids = np.fromiter((r[0] for r in rows), dtype=np.int64, count=len(rows))
+        return scores, ids
 
     def chunks(self, ids: Sequence[int]) -> dict[int, ChunkRecord]:
         """Chunk records by id; ids no longer stored are left out."""

@@ -34,7 +34,9 @@ def create_app(
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         enc = embedder if embedder is not None else settings.embedder()
         enc.encode(["warm-up"])  # load weights now, not on the first user's query
-        app.state.engine = Engine(settings.index_dir, enc, settings.reload_check_seconds)
+        app.state.engine = Engine(
+            settings.index_dir, enc, settings.reload_check_seconds, settings.rrf_k
+        )
         yield
 
     app = FastAPI(

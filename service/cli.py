@@ -88,8 +88,8 @@ def cmd_search(args: argparse.Namespace) -> int:
 
     settings = _settings(args)
     reader = IndexReader(settings.index_dir)
-    searcher = Searcher(reader, settings.embedder())
-    hits = searcher.search(args.query, args.k)
+    searcher = Searcher(reader, settings.embedder(), rrf_k=settings.rrf_k)
+    hits = searcher.search(args.query, args.k, mode=args.mode)
     if args.json:
         print(json.dumps(
             [h.__dict__ | {"trail": list(h.trail)} for h in hits], indent=2, ensure_ascii=False
@@ -179,6 +179,8 @@ def _parser() -> argparse.ArgumentParser:
     )
     p.add_argument("query", metavar="QUERY")
     p.add_argument("-k", type=int, default=5, metavar="N", help="passages to show (default 5)")
+    p.add_argument("--mode", choices=["dense", "lexical", "hybrid"], default="hybrid",
+                   help="dense (meaning), lexical (BM25 words) or hybrid (both; default)")
     p.add_argument("--json", action="store_true", help="print results as JSON")
     p.set_defaults(func=cmd_search)
 

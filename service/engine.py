@@ -24,10 +24,13 @@ class Engine:
     already running keep the searcher they started with.
     """
 
-    def __init__(self, index_dir: Path, embedder: Embedder, check_seconds: float = 2.0) -> None:
+    def __init__(
+        self, index_dir: Path, embedder: Embedder, check_seconds: float = 2.0, rrf_k: int = 60
+    ) -> None:
         self.index_dir = Path(index_dir)
         self.embedder = embedder
         self.check_seconds = check_seconds
+        self.rrf_k = rrf_k
         self._searcher: Searcher | None = None
         self._stamp: tuple[int, int] | None = None
         self._checked = 0.0
@@ -45,7 +48,7 @@ class Engine:
     def _load(self) -> None:
         stamp = self._manifest_stamp()
         try:
-            searcher = Searcher(IndexReader(self.index_dir), self.embedder)
+            searcher = Searcher(IndexReader(self.index_dir), self.embedder, rrf_k=self.rrf_k)
         except SoundingError as exc:
             # Keep serving the generation we have; report why the new one is not used.
             self.error = str(exc)

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
@@ -17,13 +17,21 @@ class SearchRequest(BaseModel):
     max_per_document: int | None = Field(
         None, ge=1, description="Most passages from any one document; no cap when left out."
     )
+    mode: Literal["dense", "lexical", "hybrid"] = Field(
+        "hybrid",
+        description="dense: meaning (encoder vectors); lexical: words (BM25); "
+        "hybrid: both, fused by reciprocal rank.",
+    )
 
 
 class Passage(BaseModel):
     """One ranked passage and where it comes from."""
 
     rank: int
-    score: float = Field(description="Cosine similarity of query and passage, -1 to 1.")
+    score: float = Field(
+        description="dense: cosine similarity (-1 to 1); lexical: BM25; hybrid: fused "
+        "reciprocal-rank score. Compare scores within one response only."
+    )
     chunk_id: int
     document_id: str
     collection: str
@@ -37,6 +45,7 @@ class Passage(BaseModel):
 class SearchResponse(BaseModel):
     query: str
     k: int
+    mode: str
     generation: int = Field(description="Index generation that answered.")
     took_ms: float = Field(description="Time spent answering, in milliseconds.")
     results: list[Passage]

@@ -37,12 +37,15 @@ def search(
             422, f"k={body.k} is over the limit of {settings.max_k} (setting max_k)"
         )
     try:
-        hits = searcher.search(body.query, body.k, max_per_document=body.max_per_document)
+        hits = searcher.search(
+            body.query, body.k, mode=body.mode, max_per_document=body.max_per_document
+        )
     except QueryError as exc:
         raise HTTPException(422, str(exc)) from exc
     return SearchResponse(
         query=body.query,
         k=body.k,
+        mode=body.mode,
         generation=searcher.reader.generation,
         took_ms=round((time.perf_counter() - started) * 1000, 3),
         results=[
