@@ -1,0 +1,273 @@
+"""Document loaders: turn the files under a root into :class:`~indexer.documents.Document` values.
+
+Markdown, HTML, PDF and plain text give one document per file; a BEIR-style
+``corpus.jsonl`` (or ``.jsonl.gz``) gives one per line. :func:`iter_root`
+never raises for a bad file: it yields a :class:`~indexer.documents.Skipped`
+with a reason a person can act on, and carries on.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import stat
+from collections.abc import Iterator
+from pathlib import Path, PurePath
+
+from ..documents import Document, Skipped
+from ..errors import LoadError, SettingsError
+from ._common import Parsed, decode_text, is_binary, short_error
+from ._corpus import iter_corpus
+from ._html import declared_charset, parse_html
+from ._markdown import parse_markdown
+from ._pdf import parse_pdf
+from ._text import parse_text
+
+__all__ = ["SUPPORTED_SUFFIXES", "iter_root", "load_file"]
+
+KINDS: dict[str, str] = {
+    ".md": "markdown",
+    ".markdown": "markdown",
+    ".html": "html",
+    ".htm": "html",
+    ".pdf": "pdf",
+    ".txt": "text",
+    ".jsonl": "corpus",
+    ".jsonl.gz": "corpus",
+}
+SUPPORTED_SUFFIXES: frozenset[str] = frozenset(KINDS)
+DEFAULT_MAX_FILE_BYTES = 50 * 2**20
+
+BINARY = "binary content in a text file"
+BROKEN_LINK = "broken symbolic link"
+NO_TEXT = "no text"
+PERMISSION = "permission denied"
+
+
+def file_suffix(name: str) -> str:
+    """The lower-cased suffix that decides the loader; ``.jsonl.gz`` counts as one."""
+    lower = name.lower()
+    if lower.endswith(".jsonl.gz"):
+        return ".jsonl.gz"
+    return PurePath(lower).suffix
+
+
+def load_file(path: Path, doc_id: str) -> list[Document]:
+    """Load one file as documents (one, or one per record of a corpus file).
+
+    ``doc_id`` names the document (ignored for corpus files, whose records
+    carry their own ``_id``; bad records are dropped). Raises LoadError with
+    the reason when the file cannot be used.
+    """
+    path = Path(path)
+    kind = _kind(path.name)
+    st = _stat(path)
+    try:
+        if kind == "corpus":
+            return _corpus_documents(path, doc_id, st)
+        return [_document(path, doc_id, kind, _read_bytes(path), st.st_mtime)]
+    except (LoadError, MemoryError):
+        raise
+    except PermissionError as exc:
+        raise LoadError(PERMISSION) from exc
+    except OSError as exc:
+        raise LoadError(f"cannot read file: {exc.strerror or short_error(exc)}") from exc
+    except Exception as exc:  # noqa: BLE001 - a parser bug on one file must not stop a run
+        raise LoadError(f"cannot parse {kind}: {short_error(exc)}") from exc
+
+
+def iter_root(
+    root: Path, *, max_file_bytes: int = DEFAULT_MAX_FILE_BYTES
+) -> Iterator[Document | Skipped]:
+    """Yield every document under ``root`` (a folder or one file), in sorted path order.
+
+    Ids are paths relative to ``root`` with ``/`` separators (the file name
+    for a single-file root; the record ``_id`` in corpus files). Hidden
+    entries are ignored silently, symlinked folders are not followed, and
+    every other file that is not loaded gives a Skipped with its reason.
+    """
+    if max_file_bytes < 1:
+        raise SettingsError(f"max_file_bytes={max_file_bytes} must be at least 1")
+    root = Path(root)
+    try:
+        st = root.stat()
+    except FileNotFoundError:
+        if root.is_symlink():
+            yield Skipped(root.name, BROKEN_LINK)
+            return
+        raise SettingsError(f"path to index does not exist: {root}") from None
+    except PermissionError:
+        yield Skipped(root.name, PERMISSION)
+        return
+    if stat.S_ISDIR(st.st_mode):
+        yield from _walk(root, (), max_file_bytes)
+    elif stat.S_ISREG(st.st_mode):
+        yield from _load_entry(root, root.name, st, max_file_bytes)
+    else:
+        yield Skipped(root.name, "not a regular file")
+
+
+def _walk(folder: Path, parts: tuple[str, ...], limit: int) -> Iterator[Document | Skipped]:
+    """Depth-first walk of ``folder``, entries sorted by name so runs are repeatable."""
+    here = "/".join(parts) or "."
+    try:
+        with os.scandir(folder) as it:
+            entries = sorted(it, key=lambda e: e.name)
+    except PermissionError:
+        yield Skipped(here, PERMISSION)
+        return
+    except OSError as exc:
+        yield Skipped(here, f"cannot read folder: {exc.strerror or short_error(exc)}")
+        return
+    for entry in entries:
+        if entry.name.startswith("."):
+            continue  # .git, .obsidian, editor swap files: never content
+        rel = "/".join((*parts, entry.name))
+        path = Path(entry.path)
+        try:
+            if entry.is_symlink():
+                try:
+                    st = os.stat(entry.path)
+                except PermissionError:
+                    yield Skipped(rel, PERMISSION)
+                    continue
+                except OSError:  # missing target, or a loop of links
+                    yield Skipped(rel, BROKEN_LINK)
+                    continue
+                if stat.S_ISDIR(st.st_mode):
+                    # Following folder links can loop forever or leave the root.
+                    yield Skipped(rel, "symbolic link to a folder; not followed")
+                elif stat.S_ISREG(st.st_mode):
+                    yield from _load_entry(path, rel, st, limit)
+                else:
+                    yield Skipped(rel, "not a regular file")
+            elif entry.is_dir(follow_symlinks=False):
+                yield from _walk(path, (*parts, entry.name), limit)
+            elif entry.is_file(follow_symlinks=False):
+                yield from _load_entry(path, rel, entry.stat(follow_symlinks=False), limit)
+            else:
+                yield Skipped(rel, "not a regular file")  # FIFOs would block a read
+        except PermissionError:
+            yield Skipped(rel, PERMISSION)
+        except OSError as exc:
+            yield Skipped(rel, f"cannot read file: {exc.strerror or short_error(exc)}")
+
+
+def _load_entry(
+    path: Path, rel: str, st: os.stat_result, limit: int
+) -> Iterator[Document | Skipped]:
+    """Documents of one regular file, or Skipped entries saying why not."""
+    try:
+        rel.encode("utf-8")
+    except UnicodeEncodeError:
+        shown = rel.encode("utf-8", "surrogateescape").decode("utf-8", "replace")
+        yield Skipped(shown, "file name is not valid UTF-8; rename the file")
+        return
+    try:
+        kind = _kind(path.name)
+    except LoadError as exc:
+        yield Skipped(rel, str(exc))
+        return
+    # Corpus files are streamed line by line, so their size costs no memory;
+    # the limit guards the formats read whole.
+    if st.st_size > limit and kind != "corpus":
+        yield Skipped(
+            rel,
+            f"file is {st.st_size} bytes, over the limit of {limit} bytes (setting max_file_bytes)",
+        )
+        return
+    try:
+        if kind == "corpus":
+            yield from iter_corpus(path, rel, os.path.abspath(path), st.st_mtime)
+        else:
+            yield _document(path, rel, kind, _read_bytes(path), st.st_mtime)
+    except LoadError as exc:
+        yield Skipped(rel, str(exc))
+    except MemoryError:
+        raise
+    except PermissionError:
+        yield Skipped(rel, PERMISSION)
+    except OSError as exc:
+        yield Skipped(rel, f"cannot read file: {exc.strerror or short_error(exc)}")
+    except Exception as exc:  # noqa: BLE001 - a parser bug on one file must not stop a run
+        yield Skipped(rel, f"cannot parse {kind}: {short_error(exc)}")
+
+
+def _kind(name: str) -> str:
+    suffix = file_suffix(name)
+    if suffix in KINDS:
+        return KINDS[suffix]
+    if not suffix:
+        raise LoadError("unsupported file type (no file name suffix)")
+    raise LoadError(f"unsupported file type '{suffix}'")
+
+
+def _stat(path: Path) -> os.stat_result:
+    """``stat`` of ``path`` with failures as LoadError."""
+    try:
+        st = path.stat()
+    except FileNotFoundError:
+        raise LoadError(BROKEN_LINK if path.is_symlink() else "file not found") from None
+    except PermissionError:
+        raise LoadError(PERMISSION) from None
+    if not stat.S_ISREG(st.st_mode):
+        raise LoadError("not a regular file")
+    return st
+
+
+def _read_bytes(path: Path) -> bytes:
+    """The file's bytes (a seam for tests that simulate unreadable files)."""
+    return path.read_bytes()
+
+
+def _corpus_documents(path: Path, rel: str, st: os.stat_result) -> list[Document]:
+    """All good records of a corpus file; LoadError when there are none."""
+    docs: list[Document] = []
+    first_problem: Skipped | None = None
+    for item in iter_corpus(path, rel, os.path.abspath(path), st.st_mtime):
+        if isinstance(item, Document):
+            docs.append(item)
+        elif first_problem is None:
+            first_problem = item
+    if not docs:
+        assert first_problem is not None  # iter_corpus raises when there are no records
+        raise LoadError(f"no valid records (line {first_problem.path.rsplit(':', 1)[-1]}: "
+                        f"{first_problem.reason})")
+    return docs
+
+
+def _document(path: Path, doc_id: str, kind: str, data: bytes, modified: float) -> Document:
+    """Parse the bytes of a non-corpus file into a Document; LoadError if unusable."""
+    if not data.strip():
+        raise LoadError(NO_TEXT)
+    stem = PurePath(path.name).stem
+    warnings: list[str] = []
+    if kind == "pdf":
+        parsed: Parsed = parse_pdf(data, stem)
+    else:
+        if is_binary(data):
+            raise LoadError(BINARY)
+        charset = declared_charset(data) if kind == "html" else None
+        text, warnings = decode_text(data, charset)
+        if kind == "markdown":
+            parsed = parse_markdown(text, stem)
+        elif kind == "html":
+            parsed = parse_html(text, stem)
+        else:
+            parsed = parse_text(text, stem)
+    if not parsed.sections:
+        raise LoadError(NO_TEXT)
+    metadata = dict(parsed.metadata)
+    warnings += parsed.warnings
+    if warnings:
+        metadata["warnings"] = warnings
+    return Document(
+        id=doc_id,
+        title=parsed.title,
+        source=os.path.abspath(path),
+        modified=modified,
+        content_hash=hashlib.sha256(data).hexdigest(),
+        kind=kind,
+        sections=tuple(parsed.sections),
+        metadata=metadata,
+    )

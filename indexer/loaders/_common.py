@@ -1,0 +1,146 @@
+"""Helpers shared by the format parsers: decoding, clean-up, JSON-safe metadata."""
+
+from __future__ import annotations
+
+import codecs
+import datetime as dt
+import math
+import re
+from dataclasses import dataclass, field
+from typing import Any
+
+from ..documents import Section
+
+UTF8_BOM = b"\xef\xbb\xbf"
+INVALID_UTF8 = "invalid UTF-8 replaced with U+FFFD"
+# How far into a text-type file a NUL byte marks it as binary (git uses the same rule).
+BINARY_SNIFF_BYTES = 8192
+# First lines longer than this are prose, not a title.
+MAX_TITLE_CHARS = 120
+
+_BLANK_RUNS = re.compile(r"\n[ \t]*\n(?:[ \t]*\n)+")
+_SEPARATORS = re.compile(r"[-_\s]+")
+
+
+@dataclass
+class Parsed:
+    """What a format parser extracts from one file, before ids and hashes are added."""
+
+    title: str
+    sections: list[Section]
+    metadata: dict[str, Any] = field(default_factory=dict)
+    warnings: list[str] = field(default_factory=list)
+
+
+def is_binary(data: bytes) -> bool:
+    """Whether ``data`` looks binary: a NUL byte in its first 8 KiB.
+
+    UTF-16 text is full of NULs but announces itself with a BOM, so it passes.
+    """
+    if data.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+        return False
+    return b"\x00" in data[:BINARY_SNIFF_BYTES]
+
+
+def decode_text(data: bytes, fallback: str | None = None) -> tuple[str, list[str]]:
+    """Decode file bytes to text with LF line ends; return the text and any warnings.
+
+    UTF-8 (BOM stripped) is expected; a UTF-16 BOM is honoured because Windows
+    tools write it. ``fallback`` is a declared encoding (an HTML ``<meta charset>``)
+    tried before replacing invalid bytes.
+    """
+    warnings: list[str] = []
+    if data.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+        text = data.decode("utf-16", errors="replace")
+    else:
+        if data.startswith(UTF8_BOM):
+            data = data[len(UTF8_BOM) :]
+        try:
+            text = data.decode("utf-8")
+        except UnicodeDecodeError:
+            text = _decode_declared(data, fallback)
+            if text is None:
+                text = data.decode("utf-8", errors="replace")
+                warnings.append(INVALID_UTF8)
+    return normalise_newlines(text.lstrip("\ufeff")), warnings
+
+
+def _decode_declared(data: bytes, encoding: str | None) -> str | None:
+    """``data`` decoded with a declared non-UTF-8 encoding, or None if that does not work."""
+    if not encoding:
+        return None
+    try:
+        if codecs.lookup(encoding).name == "utf-8":
+            return None
+        return data.decode(encoding)
+    except (LookupError, UnicodeDecodeError):
+        return None
+
+
+def normalise_newlines(text: str) -> str:
+    """CRLF and lone CR (old Mac exports) become LF."""
+    return text.replace("\r\n", "\n").replace("\r", "\n")
+
+
+def tidy_text(text: str) -> str:
+    """Strip trailing spaces per line, collapse runs of blank lines to one, trim the ends."""
+    text = "\n".join(line.rstrip() for line in text.split("\n"))
+    return _BLANK_RUNS.sub("\n\n", text).strip("\n")
+
+
+def title_from_stem(stem: str) -> str:
+    """``restore-db_backup`` → ``Restore db backup``."""
+    words = _SEPARATORS.sub(" ", stem).strip()
+    return words[:1].upper() + words[1:]
+
+
+def first_line_title(text: str) -> str | None:
+    """The first non-empty line of ``text`` if it is short enough to be a title."""
+    for line in text.split("\n"):
+        line = line.strip()
+        if line:
+            return line if len(line) <= MAX_TITLE_CHARS else None
+    return None
+
+
+def same_title(a: str, b: str) -> bool:
+    """Whether two titles are the same text, ignoring case and spacing."""
+    return " ".join(a.split()).casefold() == " ".join(b.split()).casefold()
+
+
+def json_safe(value: Any) -> Any:
+    """``value`` made JSON-serialisable: dates to ISO strings, odd types to str."""
+    if value is None or isinstance(value, (bool, int, str)):
+        return value
+    if isinstance(value, float):
+        # NaN and infinities are not valid JSON.
+        return value if math.isfinite(value) else str(value)
+    if isinstance(value, (dt.date, dt.time)):  # datetime is a date
+        return value.isoformat()
+    if isinstance(value, dict):
+        return {str(k): json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [json_safe(v) for v in value]
+    if isinstance(value, (set, frozenset)):
+        return sorted((json_safe(v) for v in value), key=str)
+    if isinstance(value, bytes):
+        return value.decode("utf-8", errors="replace")
+    return str(value)
+
+
+def as_tags(value: Any) -> list[str]:
+    """Tags given as a list or a comma-separated string, as a list of non-empty strings."""
+    if value is None:
+        return []
+    items = value.split(",") if isinstance(value, str) else value
+    if not isinstance(items, (list, tuple, set, frozenset)):
+        items = [items]
+    tags = (str(json_safe(t)).strip() for t in items if t is not None)
+    return [t for t in tags if t]
+
+
+def short_error(exc: BaseException, limit: int = 200) -> str:
+    """``TypeName: message`` of an exception, cut to ``limit`` characters."""
+    message = " ".join(str(exc).split())
+    text = f"{type(exc).__name__}: {message}" if message else type(exc).__name__
+    return text if len(text) <= limit else text[: limit - 1] + "…"

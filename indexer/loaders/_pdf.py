@@ -1,0 +1,82 @@
+"""PDF: one section per page with text, via pypdf."""
+
+from __future__ import annotations
+
+import io
+import logging
+import warnings as py_warnings
+
+from pypdf import PdfReader
+from pypdf.errors import DependencyError
+
+from ..documents import Section
+from ..errors import LoadError
+from ._common import Parsed, first_line_title, short_error, tidy_text, title_from_stem
+
+ENCRYPTED = "encrypted PDF (no password available)"
+NO_TEXT_LAYER = "no text (scanned PDF without a text layer?)"
+
+# pypdf logs every recoverable oddity of real-world PDFs; a run over a wiki export
+# would drown in them, and a file that truly cannot be read is reported as Skipped.
+logging.getLogger("pypdf").setLevel(logging.ERROR)
+
+
+def parse_pdf(data: bytes, stem: str) -> Parsed:
+    """Extract page texts (1-based page numbers), title and page count from PDF bytes."""
+    with py_warnings.catch_warnings():
+        py_warnings.simplefilter("ignore")
+        try:
+            return _parse(data, stem)
+        except (LoadError, MemoryError):
+            raise
+        except Exception as exc:  # noqa: BLE001 - pypdf raises many types on broken files
+            raise LoadError(f"malformed PDF: {short_error(exc)}") from exc
+
+
+def _parse(data: bytes, stem: str) -> Parsed:
+    reader = PdfReader(io.BytesIO(data))
+    if reader.is_encrypted:
+        try:
+            ok = reader.decrypt("")
+        except DependencyError as exc:
+            raise LoadError(f"encrypted PDF (cannot decrypt: {exc})") from exc
+        if not ok:  # PasswordType.NOT_DECRYPTED is 0
+            raise LoadError(ENCRYPTED)
+    parsed = Parsed(title="", sections=[])
+    first_page_text = ""
+    for number, page in enumerate(reader.pages, start=1):
+        try:
+            text = tidy_text(_printable(page.extract_text() or ""))
+        except Exception as exc:  # noqa: BLE001 - one bad page should not lose the others
+            parsed.warnings.append(f"page {number}: text not extracted ({short_error(exc, 120)})")
+            continue
+        if number == 1:
+            first_page_text = text
+        if text.strip():
+            parsed.sections.append(Section(trail=(), text=text, page=number))
+    if not parsed.sections:
+        raise LoadError(NO_TEXT_LAYER)
+    info = _info(reader)
+    parsed.metadata["pages"] = len(reader.pages)
+    if info.get("author"):
+        parsed.metadata["author"] = info["author"]
+    parsed.title = info.get("title") or first_line_title(first_page_text) or title_from_stem(stem)
+    return parsed
+
+
+def _info(reader: PdfReader) -> dict[str, str]:
+    """Title and author from the document information dictionary, when readable."""
+    try:
+        meta = reader.metadata
+        if meta is None:
+            return {}
+        fields = {"title": meta.title, "author": meta.author}
+    except Exception:  # noqa: BLE001 - a broken info dict must not lose the text
+        return {}
+    return {k: " ".join(str(v).split()) for k, v in fields.items() if v and str(v).strip()}
+
+
+def _printable(text: str) -> str:
+    """Page text with LF line ends and without control characters pypdf sometimes emits."""
+    text = text.replace("\r\n", "\n").replace("\r", "\n")
+    return "".join(c for c in text if c >= " " or c in "\n\t")
