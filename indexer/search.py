@@ -16,6 +16,8 @@ from .embedding import Embedder, describe
 from .errors import QueryError
 from .fusion import RRF_K, reciprocal_rank_fusion
 from .lexical import fts5_query
+from .rerank import Reranker
+from .rerank import rerank as _rerank
 from .store import IndexReader, check_model
 
 Mode = Literal["dense", "lexical", "hybrid"]
@@ -51,11 +53,21 @@ def check_mode(mode: str) -> Mode:
 class Searcher:
     """Answers queries against one :class:`IndexReader` with one encoder."""
 
-    def __init__(self, reader: IndexReader, embedder: Embedder, *, rrf_k: int = RRF_K) -> None:
+    def __init__(
+        self,
+        reader: IndexReader,
+        embedder: Embedder,
+        *,
+        rrf_k: int = RRF_K,
+        reranker: Reranker | None = None,
+        rerank_depth: int = 50,
+    ) -> None:
         check_model(reader.manifest, describe(embedder), reader.index_dir)
         self.reader = reader
         self.embedder = embedder
         self.rrf_k = rrf_k
+        self.reranker = reranker
+        self.rerank_depth = rerank_depth
 
     @cached_property
     def _chunk_document(self) -> dict[int, str]:
@@ -99,8 +111,14 @@ class Searcher:
         *,
         mode: str = "hybrid",
         max_per_document: int | None = None,
+        rerank: bool | None = None,
     ) -> list[Hit]:
-        """The ``k`` passages that best match ``query``, best first."""
+        """The ``k`` passages that best match ``query``, best first.
+
+        ``rerank`` re-orders the top ``rerank_depth`` candidates with the
+        cross-encoder; None means "when one is configured". Asking for it
+        without one configured is a QueryError.
+        """
         mode = check_mode(mode)
         query = query.strip()
         if not query:
@@ -109,8 +127,17 @@ class Searcher:
             raise QueryError(f"k={k} must be 1 or more")
         # Dig deeper than k when passages per document are capped.
         depth = k if max_per_document is None else k * 4 + 32
+        if rerank and self.reranker is None:
+            raise QueryError("rerank was asked for but no reranker is configured "
+                             "(setting reranker_path)")
+        use_reranker = self.reranker is not None and rerank is not False
+        if use_reranker:
+            depth = max(depth, self.rerank_depth)
         ranked = self.ranked_chunks(query, depth, mode)
         chunks = self.reader.chunks([c for c, _ in ranked])
+        if use_reranker:
+            pool = [(c, chunks[c].text) for c, _ in ranked[: self.rerank_depth] if c in chunks]
+            ranked = _rerank(query, pool, self.reranker) + ranked[self.rerank_depth :]
         docs = self.reader.documents(c.document_id for c in chunks.values())
         hits: list[Hit] = []
         per_doc: dict[str, int] = {}

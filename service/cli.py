@@ -88,7 +88,10 @@ def cmd_search(args: argparse.Namespace) -> int:
 
     settings = _settings(args)
     reader = IndexReader(settings.index_dir)
-    searcher = Searcher(reader, settings.embedder(), rrf_k=settings.rrf_k)
+    searcher = Searcher(
+        reader, settings.embedder(), rrf_k=settings.rrf_k,
+        reranker=settings.reranker(), rerank_depth=settings.rerank_depth,
+    )
     hits = searcher.search(args.query, args.k, mode=args.mode)
     if args.json:
         print(json.dumps(

@@ -9,6 +9,7 @@ from pathlib import Path
 
 from indexer.embedding import Embedder
 from indexer.errors import IndexStoreError, SoundingError
+from indexer.rerank import Reranker
 from indexer.search import Searcher
 from indexer.store import MANIFEST, IndexReader
 
@@ -25,12 +26,20 @@ class Engine:
     """
 
     def __init__(
-        self, index_dir: Path, embedder: Embedder, check_seconds: float = 2.0, rrf_k: int = 60
+        self,
+        index_dir: Path,
+        embedder: Embedder,
+        check_seconds: float = 2.0,
+        rrf_k: int = 60,
+        reranker: Reranker | None = None,
+        rerank_depth: int = 50,
     ) -> None:
         self.index_dir = Path(index_dir)
         self.embedder = embedder
         self.check_seconds = check_seconds
         self.rrf_k = rrf_k
+        self.reranker = reranker
+        self.rerank_depth = rerank_depth
         self._searcher: Searcher | None = None
         self._stamp: tuple[int, int] | None = None
         self._checked = 0.0
@@ -48,7 +57,10 @@ class Engine:
     def _load(self) -> None:
         stamp = self._manifest_stamp()
         try:
-            searcher = Searcher(IndexReader(self.index_dir), self.embedder, rrf_k=self.rrf_k)
+            searcher = Searcher(
+                IndexReader(self.index_dir), self.embedder, rrf_k=self.rrf_k,
+                reranker=self.reranker, rerank_depth=self.rerank_depth,
+            )
         except SoundingError as exc:
             # Keep serving the generation we have; report why the new one is not used.
             self.error = str(exc)

@@ -17,6 +17,11 @@ class SearchRequest(BaseModel):
     max_per_document: int | None = Field(
         None, ge=1, description="Most passages from any one document; no cap when left out."
     )
+    rerank: bool | None = Field(
+        None,
+        description="Re-rank the top candidates with the configured cross-encoder; by "
+        "default on when one is configured. true without one configured is a 422.",
+    )
     mode: Literal["dense", "lexical", "hybrid"] = Field(
         "hybrid",
         description="dense: meaning (encoder vectors); lexical: words (BM25); "

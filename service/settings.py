@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 from pydantic import Field
 
 from indexer.settings import IndexSettings
@@ -22,4 +24,18 @@ class ServiceSettings(IndexSettings):
     reload_check_seconds: float = Field(
         2.0, ge=0, description="How often the service looks for a newer index generation."
     )
+    reranker_path: Path | None = Field(
+        None,
+        description="Local sentence-transformers cross-encoder folder; re-ranks the top "
+        "candidates when set. Off by default: no reranker ships with sounding.",
+    )
+    rerank_depth: int = Field(50, ge=1, le=1000, description="Candidates the reranker sees.")
     log_level: str = Field("info", description="uvicorn log level.")
+
+    def reranker(self):  # -> CrossEncoderReranker | None
+        """Load the configured cross-encoder, or None when none is configured."""
+        if self.reranker_path is None:
+            return None
+        from indexer.rerank import CrossEncoderReranker
+
+        return CrossEncoderReranker(self.reranker_path, batch_size=self.batch_size)

@@ -38,7 +38,8 @@ def search(
         )
     try:
         hits = searcher.search(
-            body.query, body.k, mode=body.mode, max_per_document=body.max_per_document
+            body.query, body.k, mode=body.mode, max_per_document=body.max_per_document,
+            rerank=body.rerank,
         )
     except QueryError as exc:
         raise HTTPException(422, str(exc)) from exc
