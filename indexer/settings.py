@@ -37,6 +37,11 @@ class IndexSettings(BaseSettings):
     rrf_k: int = Field(
         60, ge=0, description="k of reciprocal rank fusion in hybrid mode (Cormack et al. 2009)."
     )
+    judgments_path: Path | None = Field(
+        None,
+        description="SQLite file of relevance judgments from POST /feedback; empty means "
+        "judgments.db in the index folder.",
+    )
     max_file_bytes: int = Field(
         50 * 2**20, ge=1, description="Files larger than this are skipped with a reason."
     )
@@ -45,6 +50,13 @@ class IndexSettings(BaseSettings):
     def chunking(self) -> ChunkSettings:
         """The chunk settings as the chunker takes them."""
         return ChunkSettings(max_tokens=self.chunk_tokens, overlap=self.chunk_overlap)
+
+    @property
+    def judgments_file(self) -> Path:
+        """Where relevance judgments are kept."""
+        from .judgments import FILENAME
+
+        return self.judgments_path or self.index_dir / FILENAME
 
     def embedder(self):  # -> SentenceTransformerEmbedder, imported late: torch is slow to load
         """Load the configured encoder."""

@@ -13,9 +13,10 @@ from fastapi.responses import JSONResponse
 from indexer import __version__
 from indexer.embedding import Embedder
 from indexer.errors import QueryError, SoundingError
+from indexer.judgments import JudgmentStore
 
 from .engine import Engine
-from .routes import documents, health, search
+from .routes import documents, feedback, health, search
 from .settings import ServiceSettings
 
 log = logging.getLogger("sounding.service")
@@ -38,7 +39,11 @@ def create_app(
             settings.index_dir, enc, settings.reload_check_seconds, settings.rrf_k,
             reranker=settings.reranker(), rerank_depth=settings.rerank_depth,
         )
-        yield
+        app.state.judgments = JudgmentStore(settings.judgments_file)
+        try:
+            yield
+        finally:
+            app.state.judgments.close()
 
     app = FastAPI(
         title="sounding",
@@ -47,7 +52,7 @@ def create_app(
         lifespan=lifespan,
     )
     app.state.settings = settings
-    for module in (search, documents, health):
+    for module in (search, documents, feedback, health):
         app.include_router(module.router)
 
     @app.exception_handler(RequestValidationError)

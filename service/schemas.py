@@ -97,3 +97,22 @@ class HealthResponse(BaseModel):
 
 class ErrorResponse(BaseModel):
     detail: str
+
+
+class FeedbackRequest(BaseModel):
+    """A person's (or bot's) judgment of how well a result answered a query."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    query: str = Field(..., min_length=1, max_length=2000)
+    document_id: str | None = Field(None, min_length=1, max_length=1000)
+    chunk_id: int | None = Field(None, ge=0, description="A passage; its document is judged.")
+    grade: int = Field(..., ge=0, le=3, description="0 not relevant … 3 answers it fully.")
+    user: str | None = Field(None, max_length=200)
+
+
+class FeedbackResponse(BaseModel):
+    id: int
+    query_id: str
+    document_id: str
+    grade: int

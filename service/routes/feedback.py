@@ -1,0 +1,40 @@
+"""``POST /feedback``: record a relevance judgment, building the team's own test set."""
+
+from __future__ import annotations
+
+from fastapi import APIRouter, HTTPException, Request
+
+from ..deps import SearcherDep
+from ..schemas import ErrorResponse, FeedbackRequest, FeedbackResponse
+
+router = APIRouter(tags=["feedback"])
+
+
+@router.post(
+    "/feedback",
+    status_code=201,
+    response_model=FeedbackResponse,
+    responses={404: {"model": ErrorResponse}, 422: {"model": ErrorResponse}},
+)
+def feedback(body: FeedbackRequest, searcher: SearcherDep, request: Request) -> FeedbackResponse:
+    """Store (query, document or passage, grade 0–3, user); export with `sounding judgments`."""
+    if body.document_id is None and body.chunk_id is None:
+        raise HTTPException(422, "name the judged result: document_id or chunk_id")
+    document_id = body.document_id
+    if body.chunk_id is not None:
+        chunk = searcher.reader.chunks([body.chunk_id]).get(body.chunk_id)
+        if chunk is None:
+            raise HTTPException(404, f"no chunk with id {body.chunk_id} in the index")
+        if document_id is not None and document_id != chunk.document_id:
+            raise HTTPException(
+                422, f"chunk {body.chunk_id} belongs to {chunk.document_id!r}, not {document_id!r}"
+            )
+        document_id = chunk.document_id
+    assert document_id is not None
+    if searcher.reader.document(document_id) is None:
+        raise HTTPException(404, f"no document with id {document_id!r} in the index")
+    j = request.app.state.judgments.record(
+        body.query, document_id, body.grade, chunk_id=body.chunk_id, user=body.user
+    )
+    return FeedbackResponse(id=j.id, query_id=j.query_id, document_id=j.document_id,
+                            grade=j.grade)
