@@ -151,7 +151,8 @@ def chunk_document(
 
     Sections are chunked one by one, in order; empty sections give nothing.
     The title and trail may take at most a quarter of the window, so a long
-    title never crowds out the passage itself.
+    title never crowds out the passage itself. A document with no text but
+    a title gives one chunk of its title.
     """
     settings = settings or ChunkSettings()
     usable = settings.max_tokens - SPECIAL_TOKENS
@@ -190,4 +191,13 @@ def chunk_document(
                     page=section.page,
                 )
             )
+    if not chunks and doc.title.strip():
+        # A document that is only a title (old collections have such records)
+        # is searchable by its title alone.
+        title = doc.title.strip()
+        title = _trim_to_tokens(title, tokenizer.spans(title), usable)
+        chunks.append(
+            Chunk(ordinal=0, trail=(), text=title, embed_text=title,
+                  tokens=len(tokenizer.spans(title)) + SPECIAL_TOKENS)
+        )
     return chunks

@@ -149,7 +149,13 @@ def test_bad_chunk_settings_are_refused(max_tokens, overlap, model_max) -> None:
 
 
 def test_empty_document_gives_no_chunks() -> None:
-    assert chunk_document(doc(Section((), "  \n ")), TOK) == []
+    assert chunk_document(doc(Section((), "  \n "), title=""), TOK) == []
+
+
+@pytest.mark.parametrize("sections", [(), (Section(("H",), "  "),)])
+def test_title_only_document_gives_one_chunk_of_its_title(sections) -> None:
+    (c,) = chunk_document(doc(*sections, title="Parallel sorting on drums"), TOK)
+    assert c.text == c.embed_text == "Parallel sorting on drums" and c.tokens == 4 + 2
 
 
 def test_embed_hash_depends_on_embedded_text_only() -> None:

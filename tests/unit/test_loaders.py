@@ -757,7 +757,7 @@ def test_gzip_and_plain_corpus_give_the_same_hashes(tmp_path: Path) -> None:
         (b'{"_id": ["x"], "text": "x"}', "'_id' must be a non-empty string"),
         (b'{"_id": "", "text": "x"}', "'_id' must be a non-empty string"),
         (b'{"_id": true, "text": "x"}', "'_id' must be a non-empty string"),
-        (b'{"_id": "x9", "title": "t", "text": "  "}', "no text"),
+        (b'{"_id": "x9", "title": "", "text": "  "}', "no text"),
     ],
 )
 def test_bad_corpus_line_is_skipped_with_its_line_number(
@@ -782,6 +782,13 @@ def test_corpus_crlf_bom_and_invalid_utf8_per_record(tmp_path: Path) -> None:
     assert "warnings" not in docs[0].metadata
     assert docs[1].text == "bad \ufffd byte"
     assert docs[1].metadata["warnings"] == ["invalid UTF-8 replaced with U+FFFD"]
+
+
+def test_title_only_corpus_record_is_a_document_without_sections(tmp_path: Path) -> None:
+    # Old test collections (CACM, for one) hold records that are only a title.
+    raw = corpus_bytes([b'{"_id": "t1", "title": "Parallel  sorting", "text": ""}'])
+    (doc,) = load_file(write(tmp_path, "c.jsonl", raw), "c.jsonl")
+    assert (doc.title, doc.sections, doc.text) == ("Parallel sorting", (), "")
 
 
 def test_corpus_title_is_never_invented(tmp_path: Path) -> None:
