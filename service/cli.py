@@ -111,6 +111,74 @@ def cmd_search(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_eval(args: argparse.Namespace) -> int:
+    from indexer.evaluation import read_qrels, read_run, write_run
+    from indexer.experiment import compare_runs, evaluate_dataset
+
+    if args.compare:
+        if not args.qrels:
+            raise SettingsError(
+                "--compare needs --qrels FILE (the judgments both runs are scored on)"
+            )
+        a, b = (Path(p) for p in args.compare)
+        rows = compare_runs(read_run(a), read_run(b), read_qrels(Path(args.qrels)))
+        if args.json:
+            print(json.dumps({r.metric: {
+                "a": round(r.mean_a, 4), "b": round(r.mean_b, 4),
+                "difference": round(r.difference, 4),
+                "wins": r.wins, "losses": r.losses, "ties": r.ties,
+                "t_test_p": r.t_test.p_value, "randomisation_p": r.randomisation.p_value,
+            } for r in rows}, indent=2))
+            return 0
+        print(f"A = {a}\nB = {b}  (wins/losses: queries where B is better/worse)")
+        print(f"{'metric':<11}{'A':>8}{'B':>8}{'B-A':>9}{'wins':>6}{'losses':>7}{'ties':>6}"
+              f"{'t-test p':>10}{'rand. p':>9}")
+        for r in rows:
+            print(f"{r.metric:<11}{r.mean_a:>8.4f}{r.mean_b:>8.4f}{r.difference:>+9.4f}"
+                  f"{r.wins:>6}{r.losses:>7}{r.ties:>6}{r.t_test.p_value:>10.4f}"
+                  f"{r.randomisation.p_value:>9.4f}")
+        return 0
+    if not args.dataset:
+        raise SettingsError("name a BEIR-layout folder to evaluate, or use --compare A.run B.run")
+    settings = _settings(args)
+    dataset = Path(args.dataset)
+    if not dataset.is_dir():
+        raise SettingsError(f"dataset folder does not exist: {dataset}")
+    result = evaluate_dataset(
+        dataset, settings, settings.embedder(), mode=args.mode, k=args.k,
+        index_dir=Path(args.index_dir) if args.index_dir else None,
+    )
+    if args.run_out:
+        write_run(result.run, Path(args.run_out), tag=f"sounding-{result.mode}")
+    if args.json:
+        print(json.dumps(result.to_json()))
+    else:
+        summary = result.to_json()
+        print(f"{dataset} mode={result.mode} queries={summary['queries']}")
+        for name in ("ndcg@10", "recall@100", "mrr@10", "map"):
+            print(f"  {name:<11}{summary[name]:.4f}")
+        if args.run_out:
+            print(f"run written to {args.run_out}")
+    return 0
+
+
+def cmd_judgments(args: argparse.Namespace) -> int:
+    from indexer.judgments import JudgmentStore
+
+    settings = _settings(args)
+    path = settings.judgments_file
+    if not path.is_file():
+        raise SettingsError(f"no judgments file at {path}; send judgments with POST /feedback")
+    store = JudgmentStore(path)
+    try:
+        queries, pairs = store.export(Path(args.out))
+    finally:
+        store.close()
+    print(f"wrote {queries} queries and {pairs} judgments to {args.out}/queries.jsonl and "
+          f"{args.out}/qrels.tsv; evaluate with `sounding eval {args.out} --index DIR`")
+    return 0
+
+
 def _is_loopback(host: str) -> bool:
     if host == "localhost":
         return True
@@ -198,6 +266,41 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--host", help="address to bind (default 127.0.0.1)")
     p.add_argument("--port", type=int, help="port (default 8757)")
     p.set_defaults(func=cmd_serve)
+
+    p = sub.add_parser(
+        "eval", parents=[common], formatter_class=fmt,
+        help="measure ranking quality on judged queries (nDCG@10, Recall@100, MRR@10, MAP)",
+        description="Index a BEIR-layout folder (corpus.jsonl, queries.jsonl, qrels.tsv) into a "
+        "scratch index, or use --index, rank every judged query and score the ranking with "
+        "pytrec_eval. With --compare, compare two TREC run files query by query.",
+        epilog="examples:\n  sounding eval ../shared/benchmarks/scifact --mode hybrid --json\n"
+        "  sounding eval data/scifact --index /tmp/sf --mode dense --run-out dense.run\n"
+        "  sounding eval --compare dense.run hybrid.run --qrels data/scifact/qrels.tsv",
+    )
+    p.add_argument("dataset", nargs="?", metavar="DATASET_DIR")
+    p.add_argument("--mode", choices=["dense", "lexical", "hybrid"], default="hybrid")
+    p.add_argument("--k", type=int, default=100, help="documents ranked per query (default 100)")
+    p.add_argument("--run-out", metavar="FILE", help="write the ranking as a TREC run file")
+    p.add_argument("--compare", nargs=2, metavar=("A.run", "B.run"),
+                   help="compare two run files instead of evaluating")
+    p.add_argument("--qrels", metavar="FILE", help="judgments for --compare (qrels.tsv)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=cmd_eval)
+
+    p = sub.add_parser(
+        "judgments", parents=[common], formatter_class=fmt,
+        help="export judgments collected by POST /feedback as a test set",
+        description="Write the judgments collected from use as queries.jsonl and qrels.tsv "
+        "(BEIR layout) for `sounding eval`.",
+        epilog="example:\n  sounding judgments export team-set && "
+        "sounding eval team-set --index ./sounding-index",
+    )
+    jsub = p.add_subparsers(dest="action", metavar="ACTION", required=True)
+    e = jsub.add_parser("export", parents=[common], help="write queries.jsonl and qrels.tsv",
+                        formatter_class=fmt,
+                        epilog="example:\n  sounding judgments export team-set")
+    e.add_argument("out", metavar="OUT_DIR")
+    e.set_defaults(func=cmd_judgments)
     return parser
 
 
