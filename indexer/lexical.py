@@ -28,11 +28,15 @@ _WORD = re.compile(r"\w+", re.UNICODE)
 
 
 def query_terms(text: str, *, max_terms: int = 64) -> list[str]:
-    """Lower-cased word tokens of ``text``, stopwords dropped unless nothing else is left."""
+    """Lower-cased word tokens of ``text``; stopwords and one-character tokens are
+    dropped unless nothing else is left."""
     words = [w.lower() for w in _WORD.findall(text)]
-    content = [w for w in words if w not in STOPWORDS]
-    terms = list(dict.fromkeys(content or words))
-    return terms[:max_terms]
+    # One-character tokens ("t" of "don't", "1" of "EL/1") match nearly every
+    # chunk and add only noise; like stopwords, they go unless nothing is left.
+    content = [w for w in words if w not in STOPWORDS and len(w) > 1]
+    # Repeats stay: FTS5's bm25() sums over the query's phrases, so a word the
+    # question repeats weighs more, as BM25's query term frequency intends.
+    return (content or words)[:max_terms]
 
 
 def fts5_query(text: str) -> str | None:

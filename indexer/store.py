@@ -197,8 +197,13 @@ def _connect(path: Path, *, readonly: bool) -> sqlite3.Connection:
 
 
 def lexical_body(title: str, trail: Sequence[str], text: str) -> str:
-    """What the BM25 index holds for a chunk: the same fields the encoder sees."""
-    return "\n".join(p for p in (title, " > ".join(trail), text) if p)
+    """What the BM25 index holds for a chunk: the fields the encoder sees.
+
+    A part equal to an earlier one is left out, so a title-only chunk (whose
+    text is its title) does not count each word twice.
+    """
+    parts = [p for p in (title, " > ".join(trail), text) if p]
+    return "\n".join(p for i, p in enumerate(parts) if p not in parts[:i])
 
 
 def _vector_blob(vector: np.ndarray) -> bytes:

@@ -104,7 +104,7 @@ def test_chunks_fit_the_encoder_with_the_real_tokenizer(demo, real_embedder) -> 
     # all-MiniLM-L6-v2's max_seq_length is 256 word pieces (its sentence_bert_config.json).
     assert max(r[2] for r in rows) <= 256 == real_embedder.max_tokens
     tok = real_embedder.model.tokenizer
-    for text, trail, tokens, title in rows:
+    for text, trail, _tokens, title in rows:
         trail_text = " > ".join(json.loads(trail))
         embedded = "\n".join(p for p in (title, trail_text) if p) + "\n" + text
         assert len(tok(embedded)["input_ids"]) <= 256
