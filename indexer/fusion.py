@@ -43,3 +43,35 @@ def reciprocal_rank_fusion(
             best[item] = min(best.get(item, rank), rank)
             order.setdefault(item, len(order))
     return sorted(score.items(), key=lambda kv: (-kv[1], best[kv[0]], order[kv[0]]))
+
+
+def fusion_depth(
+    collection_size: int, *, share: float = 0.02, low: int = 10, high: int = 100
+) -> int:
+    """How many top entries of each ranking take part in the first tier of a fusion.
+
+    About 2% of the collection, between 10 and 100 (this project's choice,
+    tuned on its demo wiki and checked on the benchmark collections): when
+    each ranking contributes a large share of a small collection, nearly
+    every item appears in both rankings and RRF degenerates into rank
+    averaging, burying an item only one ranking found at its top.
+    """
+    return max(low, min(high, int(collection_size * share)))
+
+
+def tiered_fusion(
+    rankings: Sequence[Sequence[K]], depth: int, k: int = RRF_K
+) -> list[tuple[K, float]]:
+    """RRF of the rankings cut to ``depth``, then the RRF of the full rankings for the rest.
+
+    The first tier decides the top; the second keeps every candidate for
+    recall. Second-tier scores are offset below the lowest first-tier score,
+    so scores stay in rank order.
+    """
+    top = reciprocal_rank_fusion([r[:depth] for r in rankings], k=k)
+    seen = {item for item, _ in top}
+    floor = top[-1][1] if top else 0.0
+    rest = [(i, s) for i, s in reciprocal_rank_fusion(rankings, k=k) if i not in seen]
+    # Second-tier RRF scores can exceed first-tier ones; squeeze them under the floor.
+    scale = floor / (rest[0][1] * 2) if rest and floor > 0 else 1.0
+    return top + [(i, s * scale) for i, s in rest]

@@ -14,7 +14,7 @@ from typing import Literal
 
 from .embedding import Embedder, describe
 from .errors import QueryError
-from .fusion import RRF_K, reciprocal_rank_fusion
+from .fusion import RRF_K, fusion_depth, tiered_fusion
 from .lexical import fts5_query
 from .rerank import Reranker
 from .rerank import rerank as _rerank
@@ -100,7 +100,8 @@ class Searcher:
         pool = max(depth, _FUSION_DEPTH)
         dense = [c for c, _ in self._dense([query], pool)[0]]
         lexical = [c for c, _ in self._lexical(query, pool)]
-        return reciprocal_rank_fusion([dense, lexical], k=self.rrf_k)[:depth]
+        tier = fusion_depth(int(self.reader.vectors.ntotal))
+        return tiered_fusion([dense, lexical], tier, k=self.rrf_k)[:depth]
 
     # -- passages -------------------------------------------------------------
 
@@ -214,8 +215,9 @@ class Searcher:
             return [r[:k] for r in dense]
         if mode == "lexical":
             return [r[:k] for r in lexical]
+        tier = fusion_depth(self.reader.counts()[0])
         return [
-            reciprocal_rank_fusion([[d for d, _ in a], [d for d, _ in b]], k=self.rrf_k)[:k]
+            tiered_fusion([[d for d, _ in a], [d for d, _ in b]], tier, k=self.rrf_k)[:k]
             for a, b in zip(dense, lexical, strict=True)
         ]
 

@@ -31,6 +31,8 @@ class CountingEmbedder:
         self.texts = 0
 
     def __getattr__(self, name: str):
+        if name == "inner":  # not set yet (copies, pickling): no recursion
+            raise AttributeError(name)
         return getattr(self.inner, name)
 
     def encode(self, texts) -> np.ndarray:

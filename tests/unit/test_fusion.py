@@ -6,7 +6,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from indexer.fusion import RRF_K, reciprocal_rank_fusion
+from indexer.fusion import RRF_K, fusion_depth, reciprocal_rank_fusion, tiered_fusion
 
 
 def test_default_k_is_sixty() -> None:
@@ -56,3 +56,35 @@ def test_fusion_is_a_ranking_of_the_union(rankings) -> None:
 @given(st.permutations(list(range(12))))
 def test_one_ranking_is_returned_unchanged(order) -> None:
     assert [i for i, _ in reciprocal_rank_fusion([order])] == list(order)
+
+
+@pytest.mark.parametrize(
+    ("size", "expected"), [(0, 10), (352, 10), (1033, 20), (3204, 64), (5183, 100), (10**6, 100)]
+)
+def test_fusion_depth_is_two_percent_within_bounds(size: int, expected: int) -> None:
+    assert fusion_depth(size) == expected
+
+
+def test_tiered_fusion_lets_shallow_ranks_decide_the_top() -> None:
+    # Item "a" tops ranking one only; "b".."e" sit low in both. A full-depth RRF
+    # lets the items found by both outrank "a"; the first tier (depth 2) does not.
+    one = ["a", "x", "b", "c", "d", "e"]
+    two = ["y", "z", "b", "c", "d", "e"]
+    full = [i for i, _ in reciprocal_rank_fusion([one, two])]
+    assert full.index("a") > full.index("b")
+    tiered = tiered_fusion([one, two], depth=2)
+    assert [i for i, _ in tiered][:4] == [i for i, _ in reciprocal_rank_fusion([one[:2], two[:2]])]
+    assert {i for i, _ in tiered} == set(one) | set(two)
+    scores = [s for _, s in tiered]
+    assert scores == sorted(scores, reverse=True)
+
+
+@given(
+    st.lists(st.lists(st.integers(0, 40), max_size=30, unique=True), min_size=1, max_size=3),
+    st.integers(1, 30),
+)
+def test_tiered_fusion_keeps_every_candidate_in_score_order(rankings, depth) -> None:
+    fused = tiered_fusion(rankings, depth)
+    ids = [i for i, _ in fused]
+    assert len(ids) == len(set(ids)) and set(ids) == {i for r in rankings for i in r}
+    assert [s for _, s in fused] == sorted((s for _, s in fused), reverse=True)
