@@ -14,6 +14,7 @@ from .documents import Document, Skipped
 from .embedding import Embedder, describe
 from .errors import SettingsError
 from .loaders import iter_root
+from .lock import IndexLock
 from .settings import IndexSettings
 from .store import IndexWriter
 
@@ -37,15 +38,22 @@ class RefreshReport:
     documents: int = 0
     chunks: int = 0
     seconds: float = 0.0
+    stopped_early: bool = False  # max_runtime reached; the rest waits for the next run
+    pending_left: int = 0
+    lock_taken_over: bool = False  # the previous run died holding the lock
 
     def summary(self) -> str:
         """One line of counts."""
+        tail = ""
+        if self.stopped_early:
+            tail = (f"; stopped at the time limit with {self.pending_left} documents left "
+                    "for the next run")
         return (
             f"added {len(self.added)}, updated {len(self.updated)}, removed {len(self.removed)}, "
             f"unchanged {self.unchanged}, skipped {len(self.skipped)}; "
             f"index now holds {self.documents} documents in {self.chunks} chunks "
             f"(generation {self.generation}, {self.chunks_embedded} chunks embedded, "
-            f"{self.chunks_reused} reused, {self.seconds:.1f} s)"
+            f"{self.chunks_reused} reused, {self.seconds:.1f} s){tail}"
         )
 
     def to_json(self) -> dict[str, object]:
@@ -61,6 +69,9 @@ class RefreshReport:
             "documents": self.documents,
             "chunks": self.chunks,
             "seconds": round(self.seconds, 3),
+            "stopped_early": self.stopped_early,
+            "pending_left": self.pending_left,
+            "lock_taken_over": self.lock_taken_over,
         }
 
 
@@ -88,6 +99,7 @@ def refresh_index(
     rebuild: bool = False,
     collection: str | None = None,
     progress: Callable[[int, int], None] | None = None,
+    max_runtime: float | None = None,
 ) -> RefreshReport:
     """Bring the index at ``settings.index_dir`` in step with ``roots``.
 
@@ -96,6 +108,11 @@ def refresh_index(
     document that is gone from its root is removed. Documents of roots not
     named in this run are kept. ``progress(done, total)`` is called as chunks
     are embedded.
+
+    Only one run at a time may change an index: a second one raises
+    IndexLockedError at once. With ``max_runtime`` (seconds) the run stops at
+    the first checkpoint past the limit and publishes what it finished; the
+    next run carries on where it stopped.
     """
     started = time.monotonic()
     if not roots:
@@ -106,7 +123,11 @@ def refresh_index(
     chunking = settings.chunking
     chunking.check(embedder.max_tokens)
     report = RefreshReport()
-    with IndexWriter(settings.index_dir, describe(embedder), chunking, rebuild=rebuild) as writer:
+    deadline = None if max_runtime is None else started + max_runtime
+    with IndexLock(settings.index_dir) as lock, IndexWriter(
+        settings.index_dir, describe(embedder), chunking, rebuild=rebuild
+    ) as writer:
+        report.lock_taken_over = lock.took_over is not None
         known = writer.known()
         seen: dict[str, str] = {}
         pending: list[_Pending] = []
@@ -138,6 +159,12 @@ def refresh_index(
             progress(0, total)
         group: list[_Pending] = []
         for i, p in enumerate(pending):
+            if deadline is not None and time.monotonic() > deadline and not group and done:
+                # Checkpoint: every stored document is complete; publish and stop.
+                # (At least one group per run, so even a tiny limit makes progress.)
+                report.stopped_early = True
+                report.pending_left = len(pending) - i
+                break
             group.append(p)
             if sum(len(g.chunks) for g in group) >= _GROUP_CHUNKS or i == len(pending) - 1:
                 done += _embed_and_store(writer, embedder, group, report)

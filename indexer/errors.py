@@ -12,7 +12,8 @@ message as one line and exits non-zero, the service turns it into a 4xx.
         ├── IndexMissingError      no index at the given folder
         ├── IndexMismatchError     index built with another model, dimension
         │                          or chunk settings than the current ones
-        └── IndexCorruptError      files disagree with each other
+        ├── IndexCorruptError      files disagree with each other
+        └── IndexLockedError       another run is updating the index
 """
 
 from __future__ import annotations
@@ -62,3 +63,10 @@ class IndexMismatchError(IndexStoreError):
 
 class IndexCorruptError(IndexStoreError):
     """Files of the index disagree with each other."""
+
+
+class IndexLockedError(IndexStoreError):
+    """Another ``sounding index`` holds the index folder's lock."""
+
+    # EX_TEMPFAIL of sysexits.h: try again later.
+    exit_code = 75

@@ -275,6 +275,9 @@ class IndexWriter:
             check_model(previous, model, self.index_dir)
             check_chunking(previous, chunking, self.index_dir)
         self.previous = previous
+        # Leftovers of a run that died while writing: never part of any generation.
+        for leftover in self.index_dir.glob(".*.tmp"):
+            leftover.unlink(missing_ok=True)
         db_path = self.index_dir / DATABASE
         if rebuild and db_path.exists():
             for suffix in ("", "-wal", "-shm"):

@@ -68,6 +68,7 @@ def cmd_index(args: argparse.Namespace) -> int:
         rebuild=args.rebuild,
         collection=args.collection,
         progress=None if args.quiet else _progress_bar(),
+        max_runtime=args.max_runtime,
     )
     if args.json:
         print(json.dumps(report.to_json(), indent=2))
@@ -75,6 +76,9 @@ def cmd_index(args: argparse.Namespace) -> int:
         print(report.summary())
         for s in report.skipped:
             print(f"skipped {s.path}: {s.reason}")
+    if report.lock_taken_over:
+        print("sounding: note: the previous run died holding the lock; this run took it over",
+              file=sys.stderr)
     if report.documents == 0:
         print("sounding: error: nothing could be indexed; see the skipped files above",
               file=sys.stderr)
@@ -231,7 +235,9 @@ def _parser() -> argparse.ArgumentParser:
         help="build or refresh the index from folders or files",
         description="Build or refresh the index. Unchanged documents are not re-embedded; "
         "documents gone from a folder are removed from the index.",
-        epilog="example:\n  sounding index ~/wiki-export --index /srv/sounding/index",
+        epilog="example:\n  sounding index ~/wiki-export --index /srv/sounding/index\n"
+        "exit codes: 0 done, 1 nothing indexable, 2 bad argument, 3 model, 4 index, "
+        "75 another run holds the index",
     )
     p.add_argument("paths", nargs="+", metavar="PATH", help="folders or files to index")
     p.add_argument("--rebuild", action="store_true",
@@ -240,6 +246,9 @@ def _parser() -> argparse.ArgumentParser:
                    help="collection name for these paths (default: each folder's name)")
     p.add_argument("--json", action="store_true", help="print the report as JSON")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--max-runtime", type=float, metavar="SECONDS",
+                   help="stop cleanly at the first checkpoint after this long; the next run "
+                   "carries on")
     p.set_defaults(func=cmd_index)
 
     p = sub.add_parser(
