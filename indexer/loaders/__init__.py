@@ -107,19 +107,35 @@ def iter_root(
         yield Skipped(root.name, "not a regular file")
 
 
-def _walk(folder: Path, parts: tuple[str, ...], limit: int) -> Iterator[Document | Skipped]:
-    """Depth-first walk of ``folder``, entries sorted by name so runs are repeatable."""
-    here = "/".join(parts) or "."
+def _scan(folder: Path, here: str) -> list[os.DirEntry] | Skipped:
+    """Entries of ``folder`` sorted by name, or why it cannot be read."""
     try:
         with os.scandir(folder) as it:
-            entries = sorted(it, key=lambda e: e.name)
+            return sorted(it, key=lambda e: e.name)
     except PermissionError:
-        yield Skipped(here, PERMISSION)
-        return
+        return Skipped(here, PERMISSION)
     except OSError as exc:
-        yield Skipped(here, f"cannot read folder: {exc.strerror or short_error(exc)}")
+        return Skipped(here, f"cannot read folder: {exc.strerror or short_error(exc)}")
+
+
+def _walk(folder: Path, parts: tuple[str, ...], limit: int) -> Iterator[Document | Skipped]:
+    """Depth-first walk of ``folder``, entries sorted by name so runs are repeatable.
+
+    Iterative, with an explicit stack: a legal but absurdly deep tree must not
+    exhaust Python's recursion limit and stop the whole run.
+    """
+    root_real = os.path.realpath(folder)
+    first = _scan(folder, "/".join(parts) or ".")
+    if isinstance(first, Skipped):
+        yield first
         return
-    for entry in entries:
+    stack: list[tuple[tuple[str, ...], Iterator[os.DirEntry]]] = [(parts, iter(first))]
+    while stack:
+        parts, entries = stack[-1]
+        entry = next(entries, None)
+        if entry is None:
+            stack.pop()
+            continue
         if entry.name.startswith("."):
             continue  # .git, .obsidian, editor swap files: never content
         rel = "/".join((*parts, entry.name))
@@ -137,12 +153,21 @@ def _walk(folder: Path, parts: tuple[str, ...], limit: int) -> Iterator[Document
                 if stat.S_ISDIR(st.st_mode):
                     # Following folder links can loop forever or leave the root.
                     yield Skipped(rel, "symbolic link to a folder; not followed")
+                elif not os.path.realpath(entry.path).startswith(root_real + os.sep):
+                    # A link out of the exported tree could expose any file the
+                    # indexer's user can read; only the tree's own files count.
+                    yield Skipped(rel, "symbolic link to a file outside the indexed folder; "
+                                       "not followed")
                 elif stat.S_ISREG(st.st_mode):
                     yield from _load_entry(path, rel, st, limit)
                 else:
                     yield Skipped(rel, "not a regular file")
             elif entry.is_dir(follow_symlinks=False):
-                yield from _walk(path, (*parts, entry.name), limit)
+                below = _scan(path, rel)
+                if isinstance(below, Skipped):
+                    yield below
+                else:
+                    stack.append(((*parts, entry.name), iter(below)))
             elif entry.is_file(follow_symlinks=False):
                 yield from _load_entry(path, rel, entry.stat(follow_symlinks=False), limit)
             else:

@@ -967,17 +967,23 @@ def test_symlinked_folders_are_not_followed_so_loops_end(tmp_path: Path) -> None
 
 
 @pytest.mark.skipif(not hasattr(os, "symlink"), reason="needs symbolic links")
-def test_symlinked_files_are_followed_and_broken_links_skipped(tmp_path: Path) -> None:
-    outside = write(tmp_path, "outside/shared.md", "# Shared\n\nx")
+def test_symlinked_files_inside_are_followed_others_skipped(tmp_path: Path) -> None:
+    outside = write(tmp_path, "outside/secret.md", "# Secret\n\nx")
     root = tmp_path / "root"
-    root.mkdir()
-    (root / "shared.md").symlink_to(outside)
+    write(root, "pages/shared.md", "# Shared\n\nx")
+    (root / "alias.md").symlink_to(root / "pages" / "shared.md")
+    (root / "leak.md").symlink_to(outside)
     (root / "broken.md").symlink_to(tmp_path / "missing.md")
     (root / "cycle.md").symlink_to(root / "cycle.md")
     docs, skipped = walk(root)
-    assert list(docs) == ["shared.md"]
-    assert docs["shared.md"].title == "Shared"
-    assert skipped == {"broken.md": "broken symbolic link", "cycle.md": "broken symbolic link"}
+    assert sorted(docs) == ["alias.md", "pages/shared.md"]
+    assert docs["alias.md"].title == "Shared"
+    assert skipped == {
+        "broken.md": "broken symbolic link",
+        "cycle.md": "broken symbolic link",
+        "leak.md": "symbolic link to a file outside the indexed folder; not followed",
+    }
+
 
 
 @pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="needs FIFOs")
