@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import logging
+import math
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
@@ -16,10 +17,12 @@ from indexer.errors import QueryError, SoundingError
 from indexer.judgments import JudgmentStore
 
 from .engine import Engine
+from .limits import RequestLimits
 from .routes import documents, feedback, health, search
 from .settings import ServiceSettings
 
 log = logging.getLogger("sounding.service")
+INTERNAL_ERROR = "internal error; see the service log"
 
 
 def create_app(
@@ -52,6 +55,11 @@ def create_app(
         lifespan=lifespan,
     )
     app.state.settings = settings
+    app.add_middleware(
+        RequestLimits,
+        max_body_bytes=settings.max_body_bytes,
+        max_json_depth=settings.max_json_depth,
+    )
     for module in (search, documents, feedback, health):
         app.include_router(module.router)
 
@@ -64,7 +72,7 @@ def create_app(
         )
         return JSONResponse(
             status_code=422,
-            content={"detail": f"invalid request: {reasons}", "errors": _plain(exc.errors())},
+            content=_plain({"detail": f"invalid request: {reasons}", "errors": exc.errors()}),
         )
 
     @app.exception_handler(QueryError)
@@ -75,15 +83,30 @@ def create_app(
     async def sounding_error(request: Request, exc: SoundingError) -> JSONResponse:
         return JSONResponse(status_code=503, content={"detail": str(exc)})
 
+    @app.exception_handler(Exception)
+    async def unexpected(request: Request, exc: Exception) -> JSONResponse:
+        # A bug, not a bad request: the traceback goes to the log, never to the client.
+        log.error("unexpected error answering %s %s", request.method, request.url.path,
+                  exc_info=exc)
+        return JSONResponse(status_code=500, content={"detail": INTERNAL_ERROR})
+
     return app
 
 
 def _plain(errors: object) -> object:
-    """Validation errors with any non-JSON values (exceptions in ctx) made strings."""
+    """Validation errors made JSON-safe: exceptions in ctx become strings, and so do
+    non-finite floats; text that UTF-8 cannot encode (lone surrogates) is escaped."""
     if isinstance(errors, dict):
-        return {k: _plain(v) for k, v in errors.items()}
+        return {_plain(k): _plain(v) for k, v in errors.items()}
     if isinstance(errors, list | tuple):
         return [_plain(v) for v in errors]
-    if isinstance(errors, str | int | float | bool) or errors is None:
+    if isinstance(errors, float) and not math.isfinite(errors):
+        return str(errors)
+    if isinstance(errors, int | float | bool) or errors is None:
         return errors
-    return str(errors)
+    text = str(errors)
+    try:
+        text.encode("utf-8")
+    except UnicodeEncodeError:
+        return text.encode("utf-8", "backslashreplace").decode("utf-8")
+    return text

@@ -106,7 +106,9 @@ class FeedbackRequest(BaseModel):
 
     query: str = Field(..., min_length=1, max_length=2000)
     document_id: str | None = Field(None, min_length=1, max_length=1000)
-    chunk_id: int | None = Field(None, ge=0, description="A passage; its document is judged.")
+    chunk_id: int | None = Field(
+        None, ge=0, le=2**63 - 1, description="A passage; its document is judged."
+    )
     grade: int = Field(..., ge=0, le=3, description="0 not relevant … 3 answers it fully.")
     user: str | None = Field(None, max_length=200)
 

@@ -31,6 +31,12 @@ class ServiceSettings(IndexSettings):
     )
     rerank_depth: int = Field(50, ge=1, le=1000, description="Candidates the reranker sees.")
     log_level: str = Field("info", description="uvicorn log level.")
+    max_body_bytes: int = Field(
+        64 * 1024, ge=1, description="Largest request body accepted, in bytes; larger is a 413."
+    )
+    max_json_depth: int = Field(
+        32, ge=1, le=1000, description="Deepest nesting of a JSON body accepted; deeper is a 422."
+    )
 
     def reranker(self):  # -> CrossEncoderReranker | None
         """Load the configured cross-encoder, or None when none is configured."""
