@@ -166,6 +166,23 @@ def cmd_eval(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_check(args: argparse.Namespace) -> int:
+    from indexer.check import check_index, repair_index
+
+    settings = _settings(args)
+    report = (repair_index if args.repair else check_index)(settings.index_dir)
+    for line in report.repaired:
+        print(f"repaired: {line}")
+    for problem in report.problems:
+        print(f"problem: {problem}")
+    if report.ok:
+        print(f"index at {settings.index_dir} is consistent")
+        return 0
+    if not args.repair:
+        print("run `sounding check --repair` to rebuild what can be derived", file=sys.stderr)
+    return 1
+
+
 def cmd_judgments(args: argparse.Namespace) -> int:
     from indexer.judgments import JudgmentStore
 
@@ -295,6 +312,19 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--qrels", metavar="FILE", help="judgments for --compare (qrels.tsv)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=cmd_eval)
+
+    p = sub.add_parser(
+        "check", parents=[common], formatter_class=fmt,
+        help="verify that the index files agree; --repair rebuilds derived data",
+        description="Check that every chunk has a vector and vice versa, that the lexical "
+        "index matches the chunks and the manifest the files. Exit 0 when consistent, 1 when "
+        "a problem is found (each printed on its own line).",
+        epilog="example:\n  sounding check --index /srv/sounding/index || "
+        "sounding check --repair --index /srv/sounding/index",
+    )
+    p.add_argument("--repair", action="store_true",
+                   help="rebuild the vector file and the lexical index from the chunk rows")
+    p.set_defaults(func=cmd_check)
 
     p = sub.add_parser(
         "judgments", parents=[common], formatter_class=fmt,

@@ -28,7 +28,7 @@ def one_line_error(proc: subprocess.CompletedProcess) -> str:
     return lines[0]
 
 
-@pytest.mark.parametrize("command", ["index", "search", "serve"])
+@pytest.mark.parametrize("command", ["index", "search", "serve", "eval", "check", "judgments"])
 def test_every_command_help_has_an_example(command: str) -> None:
     proc = run(command, "--help")
     assert proc.returncode == 0

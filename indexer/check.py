@@ -1,0 +1,155 @@
+"""``sounding check``: verify that the files of an index agree, and repair what is derived.
+
+Checks: the manifest reads and names an existing vector file of the right
+dimension; every chunk has a vector and every vector a chunk; the FTS5 index
+holds exactly the chunks; every document has chunks; the manifest's counts
+match; SQLite's own integrity check passes; no temporary file is left over.
+Repair rebuilds derived data (the FAISS file, the FTS5 index) from the
+chunk rows, removes leftovers and documents without chunks (the next
+``sounding index`` adds them again), then publishes a new generation.
+"""
+
+from __future__ import annotations
+
+import json
+import sqlite3
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import faiss
+import numpy as np
+
+from .chunking import ChunkSettings
+from .lock import IndexLock
+from .store import DATABASE, IndexWriter, Manifest, lexical_body, vectors_filename
+
+
+@dataclass
+class CheckReport:
+    """What ``sounding check`` found (and, with repair, fixed)."""
+
+    problems: list[str] = field(default_factory=list)
+    repaired: list[str] = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        return not self.problems
+
+
+def check_index(index_dir: Path) -> CheckReport:
+    """Verify the index at ``index_dir``; never changes anything."""
+    index_dir = Path(index_dir)
+    report = CheckReport()
+    manifest = Manifest.read(index_dir)  # missing or unreadable: raised, said as one line
+    db_path = index_dir / DATABASE
+    if not db_path.is_file():
+        report.problems.append(f"{DATABASE} is missing")
+        return report
+    conn = sqlite3.connect(f"{db_path.resolve().as_uri()}?mode=ro", uri=True)
+    try:
+        integrity = conn.execute("PRAGMA integrity_check").fetchone()[0]
+        if integrity != "ok":
+            report.problems.append(f"SQLite integrity check: {integrity}")
+        chunk_ids = np.fromiter((r[0] for r in conn.execute("SELECT id FROM chunks")), np.int64)
+        dim = int(manifest.model["dimension"])
+        bad_vectors = conn.execute(
+            "SELECT count(*) FROM chunks WHERE length(vector) != ?", [4 * dim]
+        ).fetchone()[0]
+        if bad_vectors:
+            report.problems.append(f"{bad_vectors} chunk rows hold a vector of the wrong size")
+        fts_ids = np.fromiter((r[0] for r in conn.execute("SELECT rowid FROM chunks_fts")),
+                              np.int64)
+        _compare(report, "lexical (FTS5) index", chunk_ids, fts_ids)
+        empty = conn.execute(
+            "SELECT count(*) FROM documents d WHERE NOT EXISTS "
+            "(SELECT 1 FROM chunks c WHERE c.document_id = d.id)"
+        ).fetchone()[0]
+        if empty:
+            report.problems.append(f"{empty} documents have no chunks")
+        docs = conn.execute("SELECT count(*) FROM documents").fetchone()[0]
+    finally:
+        conn.close()
+    vectors = index_dir / manifest.vectors_file
+    try:
+        index = faiss.read_index(str(vectors))
+    except RuntimeError:
+        report.problems.append(f"vector file {vectors.name} of generation "
+                               f"{manifest.generation} is missing or unreadable")
+    else:
+        if index.d != dim:
+            report.problems.append(f"{vectors.name} has {index.d} dimensions, manifest {dim}")
+        else:
+            _compare(report, f"vector file {vectors.name}", chunk_ids,
+                     faiss.vector_to_array(index.id_map).astype(np.int64))
+    if (manifest.documents, manifest.chunks) != (docs, len(chunk_ids)):
+        report.problems.append(
+            f"manifest counts {manifest.documents} documents and {manifest.chunks} chunks, "
+            f"the database holds {docs} and {len(chunk_ids)}"
+        )
+    leftovers = sorted(p.name for p in index_dir.glob(".*.tmp"))
+    leftovers += sorted(p.name for p in index_dir.glob("vectors-*.faiss")
+                        if p.name != vectors_filename(manifest.generation))
+    if leftovers:
+        report.problems.append(f"files left over by an interrupted run: {', '.join(leftovers)}")
+    return report
+
+
+def _compare(report: CheckReport, what: str, want: np.ndarray, have: np.ndarray) -> None:
+    missing = np.setdiff1d(want, have)
+    extra = np.setdiff1d(have, want)
+    if len(missing):
+        report.problems.append(f"{what} lacks {len(missing)} chunks (e.g. id {int(missing[0])})")
+    if len(extra):
+        report.problems.append(
+            f"{what} holds {len(extra)} entries with no chunk (e.g. id {int(extra[0])})"
+        )
+    if len(have) != len(np.unique(have)):
+        report.problems.append(f"{what} lists some chunks twice")
+
+
+def repair_index(index_dir: Path) -> CheckReport:
+    """Check, rebuild what is derived, and check again. Takes the writer lock."""
+    index_dir = Path(index_dir)
+    before = check_index(index_dir)
+    if before.ok:
+        return before
+    manifest = Manifest.read(index_dir)
+    chunking = ChunkSettings(manifest.chunking["max_tokens"], manifest.chunking["overlap"])
+    with IndexLock(index_dir), IndexWriter(index_dir, manifest.model, chunking) as writer:
+        conn = writer.conn
+        done: list[str] = []
+        with writer.db.atomic():
+            empty = [r[0] for r in conn.execute(
+                "SELECT id FROM documents d WHERE NOT EXISTS "
+                "(SELECT 1 FROM chunks c WHERE c.document_id = d.id)")]
+            if empty:
+                writer.remove(empty)
+                done.append(f"removed {len(empty)} documents without chunks "
+                            "(the next `sounding index` adds them again)")
+            conn.execute("DELETE FROM chunks_fts")
+            rows = conn.execute(
+                "SELECT c.id, d.title, c.trail, c.text FROM chunks c "
+                "JOIN documents d ON d.id = c.document_id").fetchall()
+            conn.executemany(
+                "INSERT INTO chunks_fts (rowid, body) VALUES (?, ?)",
+                [(r[0], lexical_body(r[1], json.loads(r[2]), r[3])) for r in rows],
+            )
+            done.append(f"rebuilt the lexical index from {len(rows)} chunks")
+        # Publishing rebuilds the vector file from the chunk rows when it is unusable,
+        # and brings a usable one in step; old files and leftovers are removed.
+        writer.previous = _without_vectors_if_unreadable(index_dir, manifest)
+        published = writer.publish()
+        done.append(f"published generation {published.generation} with "
+                    f"{published.chunks} vectors")
+    after = check_index(index_dir)
+    after.repaired = done
+    return after
+
+
+def _without_vectors_if_unreadable(index_dir: Path, manifest: Manifest) -> Manifest:
+    try:
+        faiss.read_index(str(index_dir / manifest.vectors_file))
+    except RuntimeError:
+        (index_dir / manifest.vectors_file).unlink(missing_ok=True)
+    return manifest
+
