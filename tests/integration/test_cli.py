@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -32,7 +33,7 @@ def one_line_error(proc: subprocess.CompletedProcess) -> str:
 def test_every_command_help_has_an_example(command: str) -> None:
     proc = run(command, "--help")
     assert proc.returncode == 0
-    assert "example:" in proc.stdout and f"sounding {command}" in proc.stdout
+    assert re.search(r"examples?:\n", proc.stdout) and f"sounding {command}" in proc.stdout
 
 
 def test_missing_path_fails_at_once_with_one_line(tmp_path: Path) -> None:
