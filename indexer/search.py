@@ -72,8 +72,7 @@ class Searcher:
     @cached_property
     def _chunk_document(self) -> dict[int, str]:
         """Chunk id -> document id for the whole index (for document rankings)."""
-        rows = self.reader._conn().execute("SELECT id, document_id FROM chunks")
-        return {int(r[0]): r[1] for r in rows}
+        return self.reader.chunk_documents()
 
     # -- chunk rankings -------------------------------------------------------
 

@@ -22,7 +22,8 @@ import os
 import sqlite3
 import threading
 import time
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -285,6 +286,11 @@ class IndexWriter:
         try:
             self.conn = _connect(db_path, readonly=False)
             self.conn.executescript(_SCHEMA)
+            # Readers that open a snapshot while this is set know it is mid-change.
+            self.conn.execute(
+                "INSERT OR REPLACE INTO state (key, value) VALUES ('building', ?)",
+                [str((previous.generation if previous else 0) + 1)],
+            )
         except sqlite3.Error as exc:
             raise IndexStoreError(f"cannot open {db_path}: {exc}") from exc
         self.db = sqlite_utils.Database(self.conn)
@@ -398,10 +404,15 @@ class IndexWriter:
             chunks=int(index.ntotal),
             updated_at=time.time(),
         )
+        # The database says "generation N, complete" before the manifest names N, so a
+        # reader that sees manifest N and opens a snapshot finds it complete.
+        with self.db.atomic():
+            self.conn.execute(
+                "INSERT OR REPLACE INTO state (key, value) VALUES ('generation', ?)",
+                [str(generation)],
+            )
+            self.conn.execute("DELETE FROM state WHERE key = 'building'")
         manifest.write(self.index_dir)
-        self.conn.execute(
-            "INSERT OR REPLACE INTO state (key, value) VALUES ('generation', ?)", [str(generation)]
-        )
         for old in self.index_dir.glob("vectors-*.faiss"):
             if old.name != target.name:
                 old.unlink(missing_ok=True)
@@ -500,11 +511,19 @@ _CHUNK_COLUMNS = "id, document_id, ordinal, trail, text, page, tokens"
 class IndexReader:
     """Read-only view of one index generation: vectors in memory, rows from SQLite.
 
-    Safe to share between threads: FAISS searches are read-only and each
-    thread gets its own read-only SQLite connection.
+    Safe to share between threads: FAISS searches are read-only; SQLite is
+    read through per-thread connections, or, when ``pinned``, through one
+    connection holding a read transaction opened when the reader was made.
+    SQLite's WAL mode then shows that connection the database exactly as it
+    was, whatever a re-index commits meanwhile, so a long-lived reader (the
+    service's) answers every request from one complete generation.
+    ``consistent`` says whether that snapshot is the manifest's generation
+    (False while a re-index is between its first commit and its publication).
     """
 
-    def __init__(self, index_dir: Path, model: dict[str, Any] | None = None) -> None:
+    def __init__(
+        self, index_dir: Path, model: dict[str, Any] | None = None, *, pinned: bool = False
+    ) -> None:
         self.index_dir = Path(index_dir)
         self.manifest = Manifest.read(self.index_dir)
         if model is not None:
@@ -517,13 +536,27 @@ class IndexReader:
                 "rebuild it with `sounding index --rebuild`"
             )
         self._local = threading.local()
+        self._pinned: sqlite3.Connection | None = None
+        self._pin_lock = threading.Lock()
+        self.consistent = True
+        if pinned:
+            conn = _connect(self._db_path, readonly=True)
+            conn.isolation_level = None
+            conn.execute("BEGIN")
+            state = dict(conn.execute("SELECT key, value FROM state").fetchall())
+            self._pinned = conn
+            self.consistent = (
+                state.get("generation") == str(self.manifest.generation)
+                and "building" not in state
+            )
         vectors = self.index_dir / self.manifest.vectors_file
         try:
             self.vectors: faiss.Index = faiss.read_index(str(vectors))
         except RuntimeError:
             # A missing or unreadable vector file is derived data: rebuild it in memory.
             self.vectors = _flat_index(self.dimension)
-            ids, matrix = _load_vectors(self._conn(), self.dimension)
+            with self._connection() as conn:
+                ids, matrix = _load_vectors(conn, self.dimension)
             if len(ids):
                 self.vectors.add_with_ids(matrix, ids)
         if self.vectors.d != self.dimension:
@@ -532,12 +565,26 @@ class IndexReader:
                 "rebuild the index with `sounding index --rebuild`"
             )
 
-    def _conn(self) -> sqlite3.Connection:
+    @contextmanager
+    def _connection(self) -> Iterator[sqlite3.Connection]:
+        """The connection to read with, held exclusively for the block when pinned."""
+        if self._pinned is not None:
+            with self._pin_lock:
+                yield self._pinned
+            return
         conn = getattr(self._local, "conn", None)
         if conn is None:
             conn = _connect(self._db_path, readonly=True)
             self._local.conn = conn
-        return conn
+        yield conn
+
+    def _rows(self, sql: str, params: Sequence[object] = ()) -> list[sqlite3.Row]:
+        with self._connection() as conn:
+            return conn.execute(sql, list(params)).fetchall()
+
+    def chunk_documents(self) -> dict[int, str]:
+        """Chunk id -> document id for every chunk."""
+        return {int(r[0]): r[1] for r in self._rows("SELECT id, document_id FROM chunks")}
 
     @property
     def generation(self) -> int:
@@ -545,7 +592,7 @@ class IndexReader:
 
     def counts(self) -> tuple[int, int]:
         """(documents, chunks) in this generation."""
-        docs = self._conn().execute("SELECT count(*) FROM documents").fetchone()[0]
+        docs = self._rows("SELECT count(*) FROM documents")[0][0]
         return int(docs), int(self.vectors.ntotal)
 
     def search(self, queries: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
@@ -561,11 +608,11 @@ class IndexReader:
 
         ``match`` must be a safe FTS5 expression (see :mod:`indexer.lexical`).
         """
-        rows = self._conn().execute(
+        rows = self._rows(
             "SELECT rowid, bm25(chunks_fts) FROM chunks_fts WHERE chunks_fts MATCH ? "
             "ORDER BY bm25(chunks_fts) LIMIT ?",
             [match, int(k)],
-        ).fetchall()
+        )
         # FTS5's bm25() is negative, more negative is better; flip it for callers.
         scores = np.fromiter((-r[1] for r in rows), dtype=np.float32, count=len(rows))
         ids = np.fromiter((r[0] for r in rows), dtype=np.int64, count=len(rows))
@@ -578,7 +625,7 @@ class IndexReader:
         for start in range(0, len(ids), 900):
             part = ids[start : start + 900]
             marks = ",".join("?" * len(part))
-            for row in self._conn().execute(
+            for row in self._rows(
                 f"SELECT {_CHUNK_COLUMNS} FROM chunks WHERE id IN ({marks})", part
             ):
                 out[row["id"]] = _chunk(row)
@@ -591,9 +638,7 @@ class IndexReader:
         for start in range(0, len(ids), 900):
             part = ids[start : start + 900]
             marks = ",".join("?" * len(part))
-            for row in self._conn().execute(
-                f"SELECT * FROM documents WHERE id IN ({marks})", part
-            ):
+            for row in self._rows(f"SELECT * FROM documents WHERE id IN ({marks})", part):
                 out[row["id"]] = _document(row)
         return out
 
@@ -601,14 +646,25 @@ class IndexReader:
         return self.documents([document_id]).get(document_id)
 
     def document_chunks(self, document_id: str) -> list[ChunkRecord]:
-        rows = self._conn().execute(
+        rows = self._rows(
             f"SELECT {_CHUNK_COLUMNS} FROM chunks WHERE document_id = ? ORDER BY ordinal",
             [document_id],
         )
         return [_chunk(r) for r in rows]
 
     def close(self) -> None:
+        """Close this thread's connection, and the pinned one (ending its snapshot)."""
         conn = getattr(self._local, "conn", None)
         if conn is not None:
             conn.close()
             self._local.conn = None
+        if self._pinned is not None:
+            with self._pin_lock:
+                self._pinned.close()
+                self._pinned = None
+
+    def __del__(self) -> None:
+        # A pinned snapshot holds back WAL checkpoints: end it with the reader.
+        pinned = getattr(self, "_pinned", None)
+        if pinned is not None:
+            pinned.close()

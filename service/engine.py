@@ -57,8 +57,18 @@ class Engine:
     def _load(self) -> None:
         stamp = self._manifest_stamp()
         try:
+            reader = IndexReader(self.index_dir, pinned=True)
+            if not reader.consistent and self._searcher is not None:
+                # A re-index began changing rows after this manifest was written: this
+                # snapshot mixes generations. Keep the complete one we have; the next
+                # publication changes the manifest and we look again.
+                log.info("generation %s is being superseded; keeping generation %s",
+                         reader.generation, self._searcher.reader.generation)
+                reader.close()
+                self._stamp = stamp
+                return
             searcher = Searcher(
-                IndexReader(self.index_dir), self.embedder, rrf_k=self.rrf_k,
+                reader, self.embedder, rrf_k=self.rrf_k,
                 reranker=self.reranker, rerank_depth=self.rerank_depth,
             )
         except SoundingError as exc:
@@ -77,7 +87,9 @@ class Engine:
             "index generation %s loaded: %s documents, %s chunks",
             searcher.reader.generation, docs, chunks,
         )
-        del old  # its connections close when the last request using it ends
+        # The old reader's snapshot ends when the last request using it lets go
+        # (IndexReader.__del__), so requests in flight finish on their generation.
+        del old
 
     def current(self) -> Searcher | None:
         """The searcher of the newest loaded generation, or None if there is no index."""

@@ -180,3 +180,19 @@ def test_garbled_manifest_is_reported(tmp_path: Path) -> None:
 def test_index_folder_is_private_to_its_owner(tmp_path: Path) -> None:
     build(tmp_path / "idx", n_docs=1)
     assert (tmp_path / "idx").stat().st_mode & 0o077 == 0
+
+
+def test_pinned_reader_keeps_its_generation_while_a_writer_commits(tmp_path: Path) -> None:
+    build(tmp_path, n_docs=4)
+    pinned = IndexReader(tmp_path, MODEL, pinned=True)
+    assert pinned.consistent and pinned.counts()[0] == 4
+    with IndexWriter(tmp_path, MODEL, ChunkSettings()) as w:
+        w.remove(["notes/doc-0.md", "notes/doc-1.md"])
+        # Mid-run: a new pinned reader knows its snapshot is not a published generation.
+        assert IndexReader(tmp_path, MODEL, pinned=True).consistent is False
+        assert pinned.document("notes/doc-0.md") is not None
+        w.publish()
+    assert pinned.counts()[0] == 4 and len(pinned.document_chunks("notes/doc-1.md")) == 2
+    fresh = IndexReader(tmp_path, MODEL, pinned=True)
+    assert fresh.consistent and fresh.generation == 2 and fresh.counts()[0] == 2
+    pinned.close()
