@@ -18,8 +18,9 @@ from .lock import IndexLock
 from .settings import IndexSettings
 from .store import IndexWriter
 
-# Documents are embedded and committed in groups of about this many chunks:
-# big enough for full encoder batches, small enough that a crash loses little.
+# Documents are embedded and stored in groups of about this many chunks: big
+# enough for full encoder batches, small enough to bound memory; a group's end
+# is a checkpoint where --max-runtime may stop the run.
 _GROUP_CHUNKS = 512
 
 

@@ -30,6 +30,7 @@ class CheckReport:
 
     problems: list[str] = field(default_factory=list)
     repaired: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)  # worth knowing, not damage
 
     @property
     def ok(self) -> bool:
@@ -67,28 +68,43 @@ def check_index(index_dir: Path) -> CheckReport:
         if empty:
             report.problems.append(f"{empty} documents have no chunks")
         docs = conn.execute("SELECT count(*) FROM documents").fetchone()[0]
+        row = conn.execute("SELECT value FROM state WHERE key = 'generation'").fetchone()
     finally:
         conn.close()
-    vectors = index_dir / manifest.vectors_file
+    generation = int(row[0]) if row else manifest.generation
+    if generation > manifest.generation:
+        report.notes.append(
+            f"generation {generation} is committed but the manifest still names "
+            f"{manifest.generation} (a publication was interrupted); readers use "
+            f"{generation}, and the next `sounding index` updates the manifest"
+        )
+    elif generation < manifest.generation:
+        report.problems.append(
+            f"the manifest names generation {manifest.generation}, the database holds "
+            f"{generation}"
+        )
+    vectors = index_dir / vectors_filename(generation)
     try:
         index = faiss.read_index(str(vectors))
     except RuntimeError:
         report.problems.append(f"vector file {vectors.name} of generation "
-                               f"{manifest.generation} is missing or unreadable")
+                               f"{generation} is missing or unreadable")
     else:
         if index.d != dim:
             report.problems.append(f"{vectors.name} has {index.d} dimensions, manifest {dim}")
         else:
             _compare(report, f"vector file {vectors.name}", chunk_ids,
                      faiss.vector_to_array(index.id_map).astype(np.int64))
-    if (manifest.documents, manifest.chunks) != (docs, len(chunk_ids)):
+    if generation == manifest.generation and (manifest.documents, manifest.chunks) != (
+        docs, len(chunk_ids)
+    ):
         report.problems.append(
             f"manifest counts {manifest.documents} documents and {manifest.chunks} chunks, "
             f"the database holds {docs} and {len(chunk_ids)}"
         )
     leftovers = sorted(p.name for p in index_dir.glob(".*.tmp"))
     leftovers += sorted(p.name for p in index_dir.glob("vectors-*.faiss")
-                        if p.name != vectors_filename(manifest.generation))
+                        if p.name != vectors_filename(generation))
     if leftovers:
         report.problems.append(f"files left over by an interrupted run: {', '.join(leftovers)}")
     return report

@@ -207,6 +207,12 @@ def lexical_body(title: str, trail: Sequence[str], text: str) -> str:
     return "\n".join(p for i, p in enumerate(parts) if p not in parts[:i])
 
 
+def _state_generation(conn: sqlite3.Connection) -> int | None:
+    """The last committed generation, as SQLite records it (None before the first)."""
+    row = conn.execute("SELECT value FROM state WHERE key = 'generation'").fetchone()
+    return int(row[0]) if row else None
+
+
 def _vector_blob(vector: np.ndarray) -> bytes:
     return np.ascontiguousarray(vector, dtype=np.float32).tobytes()
 
@@ -242,9 +248,10 @@ def _load_vectors(conn: sqlite3.Connection, dimension: int, ids: Sequence[int] |
 class IndexWriter:
     """Changes an index folder; only the indexer uses it.
 
-    Each document's rows change in one SQLite transaction, so a crash leaves
-    every document either as it was or as it is now. :meth:`publish` then
-    brings the FAISS file and the manifest up to date as a new generation.
+    The whole run is one SQLite transaction (documents changed through
+    savepoints inside it); :meth:`publish` writes the next FAISS file, commits,
+    then replaces the manifest. A run that dies before its commit leaves the
+    last generation exactly as it was.
     """
 
     def __init__(
@@ -264,6 +271,7 @@ class IndexWriter:
         self.model = model
         self.chunking = chunking
         self.dimension = int(model["dimension"])
+        other_schema = False
         try:
             previous: Manifest | None = Manifest.read(self.index_dir)
         except IndexMissingError:
@@ -271,7 +279,7 @@ class IndexWriter:
         except IndexMismatchError:
             if not rebuild:
                 raise
-            previous = None
+            previous, other_schema = None, True
         if previous is not None and not rebuild:
             check_model(previous, model, self.index_dir)
             check_chunking(previous, chunking, self.index_dir)
@@ -280,22 +288,45 @@ class IndexWriter:
         for leftover in self.index_dir.glob(".*.tmp"):
             leftover.unlink(missing_ok=True)
         db_path = self.index_dir / DATABASE
-        if rebuild and db_path.exists():
+        if other_schema and db_path.exists():
+            # Tables of another schema cannot be reused; start the file anew.
             for suffix in ("", "-wal", "-shm"):
                 Path(f"{db_path}{suffix}").unlink(missing_ok=True)
         try:
             self.conn = _connect(db_path, readonly=False)
             self.conn.executescript(_SCHEMA)
-            # Readers that open a snapshot while this is set know it is mid-change.
-            self.conn.execute(
-                "INSERT OR REPLACE INTO state (key, value) VALUES ('building', ?)",
-                [str((previous.generation if previous else 0) + 1)],
-            )
+            # The whole run is one transaction, committed by publish(): a run that
+            # dies, however it dies, leaves the last published generation as it was.
+            self.conn.execute("BEGIN IMMEDIATE")
+            self._roll_forward()
+            if rebuild:
+                self.conn.execute("DELETE FROM chunks_fts")
+                self.conn.execute("DELETE FROM documents")  # chunks go by cascade
+        except sqlite3.OperationalError as exc:
+            raise IndexStoreError(f"cannot open {db_path} for writing: {exc}") from exc
         except sqlite3.Error as exc:
             raise IndexStoreError(f"cannot open {db_path}: {exc}") from exc
         self.db = sqlite_utils.Database(self.conn)
 
+    def _roll_forward(self) -> None:
+        """Finish a publication that committed but died before replacing the manifest."""
+        committed = _state_generation(self.conn)
+        if self.previous is None or committed is None or committed <= self.previous.generation:
+            return
+        if (self.index_dir / vectors_filename(committed)).is_file():
+            docs = self.conn.execute("SELECT count(*) FROM documents").fetchone()[0]
+            chunks = self.conn.execute("SELECT count(*) FROM chunks").fetchone()[0]
+            self.previous = Manifest(
+                model=self.previous.model, chunking=self.previous.chunking,
+                generation=committed, documents=int(docs), chunks=int(chunks),
+                updated_at=time.time(),
+            )
+            self.previous.write(self.index_dir)
+
     def close(self) -> None:
+        """Close; changes not published are rolled back."""
+        if self.conn.in_transaction:
+            self.conn.execute("ROLLBACK")
         self.conn.close()
 
     def __enter__(self) -> IndexWriter:
@@ -382,8 +413,17 @@ class IndexWriter:
         self.conn.execute(f"DELETE FROM chunks_fts WHERE rowid IN ({select_ids})", list(params))
 
     def publish(self) -> Manifest:
-        """Write the FAISS file of a new generation, then the manifest that names it."""
-        generation = (self.previous.generation if self.previous else 0) + 1
+        """Publish the run's changes as a new generation.
+
+        Order matters for crash safety: the FAISS file of the new generation is
+        written first (beside the old one); then the SQLite transaction commits,
+        which is the single moment the new generation comes to exist (readers
+        take the generation from SQLite, so they see either all of it or none);
+        then the manifest is replaced, which running services watch; old vector
+        files go last. A new transaction opens for any further changes.
+        """
+        committed = _state_generation(self.conn) or 0
+        generation = max(self.previous.generation if self.previous else 0, committed) + 1
         index = self._updated_faiss()
         target = self.index_dir / vectors_filename(generation)
         tmp = target.with_name(f".{target.name}.tmp")
@@ -396,6 +436,15 @@ class IndexWriter:
             tmp.unlink(missing_ok=True)
             raise IndexStoreError(f"cannot write {target}: {exc}") from exc
         docs = self.conn.execute("SELECT count(*) FROM documents").fetchone()[0]
+        self.conn.execute(
+            "INSERT OR REPLACE INTO state (key, value) VALUES ('generation', ?)",
+            [str(generation)],
+        )
+        try:
+            self.conn.execute("COMMIT")
+        except sqlite3.Error as exc:
+            target.unlink(missing_ok=True)
+            raise IndexStoreError(f"cannot commit to {DATABASE}: {exc}") from exc
         manifest = Manifest(
             model=self.model,
             chunking={"max_tokens": self.chunking.max_tokens, "overlap": self.chunking.overlap},
@@ -404,19 +453,12 @@ class IndexWriter:
             chunks=int(index.ntotal),
             updated_at=time.time(),
         )
-        # The database says "generation N, complete" before the manifest names N, so a
-        # reader that sees manifest N and opens a snapshot finds it complete.
-        with self.db.atomic():
-            self.conn.execute(
-                "INSERT OR REPLACE INTO state (key, value) VALUES ('generation', ?)",
-                [str(generation)],
-            )
-            self.conn.execute("DELETE FROM state WHERE key = 'building'")
         manifest.write(self.index_dir)
         for old in self.index_dir.glob("vectors-*.faiss"):
             if old.name != target.name:
                 old.unlink(missing_ok=True)
         self.previous = manifest
+        self.conn.execute("BEGIN IMMEDIATE")
         return manifest
 
     def _updated_faiss(self) -> faiss.IndexIDMap2:
@@ -516,9 +558,8 @@ class IndexReader:
     connection holding a read transaction opened when the reader was made.
     SQLite's WAL mode then shows that connection the database exactly as it
     was, whatever a re-index commits meanwhile, so a long-lived reader (the
-    service's) answers every request from one complete generation.
-    ``consistent`` says whether that snapshot is the manifest's generation
-    (False while a re-index is between its first commit and its publication).
+    service's) answers every request from one complete generation. (A run
+    commits once, when it publishes, so every snapshot is a whole generation.)
     """
 
     def __init__(
@@ -538,18 +579,17 @@ class IndexReader:
         self._local = threading.local()
         self._pinned: sqlite3.Connection | None = None
         self._pin_lock = threading.Lock()
-        self.consistent = True
         if pinned:
             conn = _connect(self._db_path, readonly=True)
             conn.isolation_level = None
             conn.execute("BEGIN")
-            state = dict(conn.execute("SELECT key, value FROM state").fetchall())
             self._pinned = conn
-            self.consistent = (
-                state.get("generation") == str(self.manifest.generation)
-                and "building" not in state
-            )
-        vectors = self.index_dir / self.manifest.vectors_file
+        # SQLite's commit makes a generation exist; the manifest may lag behind it
+        # by a crash between the two, so the generation comes from the database.
+        with self._connection() as conn:
+            committed = _state_generation(conn)
+        self._generation = committed if committed is not None else self.manifest.generation
+        vectors = self.index_dir / vectors_filename(self._generation)
         try:
             self.vectors: faiss.Index = faiss.read_index(str(vectors))
         except RuntimeError:
@@ -588,7 +628,8 @@ class IndexReader:
 
     @property
     def generation(self) -> int:
-        return self.manifest.generation
+        """The generation this reader sees."""
+        return self._generation
 
     def counts(self) -> tuple[int, int]:
         """(documents, chunks) in this generation."""

@@ -175,6 +175,8 @@ def cmd_check(args: argparse.Namespace) -> int:
         print(f"repaired: {line}")
     for problem in report.problems:
         print(f"problem: {problem}")
+    for note in report.notes:
+        print(f"note: {note}")
     if report.ok:
         print(f"index at {settings.index_dir} is consistent")
         return 0

@@ -57,16 +57,8 @@ class Engine:
     def _load(self) -> None:
         stamp = self._manifest_stamp()
         try:
+            # A pinned reader sees one committed generation for as long as it lives.
             reader = IndexReader(self.index_dir, pinned=True)
-            if not reader.consistent and self._searcher is not None:
-                # A re-index began changing rows after this manifest was written: this
-                # snapshot mixes generations. Keep the complete one we have; the next
-                # publication changes the manifest and we look again.
-                log.info("generation %s is being superseded; keeping generation %s",
-                         reader.generation, self._searcher.reader.generation)
-                reader.close()
-                self._stamp = stamp
-                return
             searcher = Searcher(
                 reader, self.embedder, rrf_k=self.rrf_k,
                 reranker=self.reranker, rerank_depth=self.rerank_depth,

@@ -185,14 +185,40 @@ def test_index_folder_is_private_to_its_owner(tmp_path: Path) -> None:
 def test_pinned_reader_keeps_its_generation_while_a_writer_commits(tmp_path: Path) -> None:
     build(tmp_path, n_docs=4)
     pinned = IndexReader(tmp_path, MODEL, pinned=True)
-    assert pinned.consistent and pinned.counts()[0] == 4
+    assert pinned.generation == 1 and pinned.counts()[0] == 4
     with IndexWriter(tmp_path, MODEL, ChunkSettings()) as w:
         w.remove(["notes/doc-0.md", "notes/doc-1.md"])
-        # Mid-run: a new pinned reader knows its snapshot is not a published generation.
-        assert IndexReader(tmp_path, MODEL, pinned=True).consistent is False
-        assert pinned.document("notes/doc-0.md") is not None
+        # Mid-run, nothing is visible yet: a new reader still sees generation 1 whole.
+        mid = IndexReader(tmp_path, MODEL, pinned=True)
+        assert mid.generation == 1 and mid.counts()[0] == 4
         w.publish()
     assert pinned.counts()[0] == 4 and len(pinned.document_chunks("notes/doc-1.md")) == 2
     fresh = IndexReader(tmp_path, MODEL, pinned=True)
-    assert fresh.consistent and fresh.generation == 2 and fresh.counts()[0] == 2
+    assert fresh.generation == 2 and fresh.counts()[0] == 2
     pinned.close()
+
+
+def test_a_run_that_dies_before_publishing_changes_nothing(tmp_path: Path) -> None:
+    build(tmp_path, n_docs=4)
+    w = IndexWriter(tmp_path, MODEL, ChunkSettings())
+    w.remove(["notes/doc-0.md"])
+    doc, chunks = make_doc(9, 2)
+    w.put(doc, "notes", chunks, unit_rows(np.random.default_rng(0), 2, 16))
+    w.close()  # as if killed: the transaction never committed
+    r = IndexReader(tmp_path, MODEL)
+    assert r.generation == 1 and r.counts() == (4, 1 + 2 + 3 + 4)
+    assert r.document("notes/doc-0.md") is not None and r.document("notes/doc-9.md") is None
+
+
+def test_a_commit_whose_manifest_was_not_written_is_rolled_forward(tmp_path: Path) -> None:
+    build(tmp_path, n_docs=3)
+    old_manifest = (tmp_path / MANIFEST).read_bytes()
+    with IndexWriter(tmp_path, MODEL, ChunkSettings()) as w:
+        w.remove(["notes/doc-0.md"])
+        w.publish()
+    (tmp_path / MANIFEST).write_bytes(old_manifest)  # died between commit and manifest
+    r = IndexReader(tmp_path, MODEL)
+    assert r.generation == 2 and r.counts()[0] == 2  # readers follow the database
+    with IndexWriter(tmp_path, MODEL, ChunkSettings()):
+        pass
+    assert Manifest.read(tmp_path).generation == 2
