@@ -325,8 +325,11 @@ class IndexWriter:
 
     def close(self) -> None:
         """Close; changes not published are rolled back."""
-        if self.conn.in_transaction:
-            self.conn.execute("ROLLBACK")
+        try:
+            if self.conn.in_transaction:
+                self.conn.execute("ROLLBACK")
+        except sqlite3.Error:
+            pass  # closing discards the transaction all the same
         self.conn.close()
 
     def __enter__(self) -> IndexWriter:
@@ -347,10 +350,24 @@ class IndexWriter:
         )
         return {r[0]: np.frombuffer(r[1], dtype=np.float32).copy() for r in rows}
 
+    def _write_failed(self, exc: BaseException) -> IndexStoreError:
+        return IndexStoreError(
+            f"cannot write to the index at {self.index_dir}: {exc} (is the disk full, or the "
+            "folder read-only?); the last published generation is unchanged and still served"
+        )
+
     def put(
         self, doc: Document, collection: str, chunks: Sequence[Chunk], vectors: np.ndarray
     ) -> None:
-        """Store ``doc`` and its chunks, replacing any earlier version, in one transaction."""
+        """Store ``doc`` and its chunks, replacing any earlier version."""
+        try:
+            self._put(doc, collection, chunks, vectors)
+        except (sqlite3.Error, OSError) as exc:
+            raise self._write_failed(exc) from exc
+
+    def _put(
+        self, doc: Document, collection: str, chunks: Sequence[Chunk], vectors: np.ndarray
+    ) -> None:
         if len(chunks) != len(vectors):
             raise ValueError("one vector per chunk")
         if vectors.size and vectors.shape[1] != self.dimension:
@@ -397,6 +414,12 @@ class IndexWriter:
     def remove(self, document_ids: Iterable[str]) -> int:
         """Delete documents (and by cascade their chunks); how many were deleted."""
         ids = list(document_ids)
+        try:
+            return self._remove(ids)
+        except (sqlite3.Error, OSError) as exc:
+            raise self._write_failed(exc) from exc
+
+    def _remove(self, ids: list[str]) -> int:
         removed = 0
         with self.db.atomic():
             for start in range(0, len(ids), 900):
@@ -434,7 +457,7 @@ class IndexWriter:
             os.replace(tmp, target)
         except (OSError, RuntimeError) as exc:
             tmp.unlink(missing_ok=True)
-            raise IndexStoreError(f"cannot write {target}: {exc}") from exc
+            raise self._write_failed(exc) from exc
         docs = self.conn.execute("SELECT count(*) FROM documents").fetchone()[0]
         self.conn.execute(
             "INSERT OR REPLACE INTO state (key, value) VALUES ('generation', ?)",
@@ -444,7 +467,7 @@ class IndexWriter:
             self.conn.execute("COMMIT")
         except sqlite3.Error as exc:
             target.unlink(missing_ok=True)
-            raise IndexStoreError(f"cannot commit to {DATABASE}: {exc}") from exc
+            raise self._write_failed(exc) from exc
         manifest = Manifest(
             model=self.model,
             chunking={"max_tokens": self.chunking.max_tokens, "overlap": self.chunking.overlap},
