@@ -46,11 +46,11 @@ def reciprocal_rank_fusion(
 
 
 def fusion_depth(
-    collection_size: int, *, share: float = 0.02, low: int = 10, high: int = 100
+    collection_size: int, *, share: float = 0.02, low: int = 5, high: int = 100
 ) -> int:
     """How many top entries of each ranking take part in the first tier of a fusion.
 
-    About 2% of the collection, between 10 and 100 (this project's choice,
+    About 2% of the collection, between 5 and 100 (this project's choice,
     tuned on its demo wiki and checked on the benchmark collections): when
     each ranking contributes a large share of a small collection, nearly
     every item appears in both rankings and RRF degenerates into rank

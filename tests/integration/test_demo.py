@@ -97,6 +97,13 @@ def test_expected_document_is_in_the_top_five(base: str, q) -> None:
     assert set(q["expected"]) & set(top), f"expected {q['expected']}, got {top}"
 
 
+def test_the_query_the_demo_prints_finds_its_answer(base: str) -> None:
+    # scripts/demo.sh and the README print this curl; a new user's first query.
+    r = httpx.post(f"{base}/search", json={
+        "query": "can I move unused vacation days to next year?", "k": 3})
+    assert "hr/annual-leave.md" in [p["document_id"] for p in r.json()["results"]]
+
+
 def test_chunks_fit_the_encoder_with_the_real_tokenizer(demo, real_embedder) -> None:
     settings, _ = demo
     conn = sqlite3.connect(settings.index_dir / "sounding.db")

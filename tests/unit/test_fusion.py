@@ -59,7 +59,7 @@ def test_one_ranking_is_returned_unchanged(order) -> None:
 
 
 @pytest.mark.parametrize(
-    ("size", "expected"), [(0, 10), (352, 10), (1033, 20), (3204, 64), (5183, 100), (10**6, 100)]
+    ("size", "expected"), [(0, 5), (352, 7), (1033, 20), (3204, 64), (5183, 100), (10**6, 100)]
 )
 def test_fusion_depth_is_two_percent_within_bounds(size: int, expected: int) -> None:
     assert fusion_depth(size) == expected
