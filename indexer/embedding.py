@@ -91,6 +91,19 @@ class _HFTokenizer:
         return [tuple(s) for s in out["offset_mapping"]]  # type: ignore[misc]
 
 
+def quiet_offline() -> None:
+    """Never reach for a model hub (these machines have no internet) and keep
+    library progress bars and warnings out of the CLI's output."""
+    os.environ.setdefault("HF_HUB_OFFLINE", "1")
+    os.environ.setdefault("TRANSFORMERS_OFFLINE", "1")
+    os.environ.setdefault("TOKENIZERS_PARALLELISM", "false")
+    for noisy in ("transformers", "sentence_transformers", "huggingface_hub"):
+        logging.getLogger(noisy).setLevel(logging.ERROR)
+    import transformers
+
+    transformers.utils.logging.disable_progress_bar()
+
+
 def peek_model(path: Path) -> tuple[int, int] | None:
     """(dimension, max_tokens) read from a model folder's config files, without loading it.
 
@@ -138,16 +151,8 @@ class SentenceTransformerEmbedder:
     def model(self):  # -> SentenceTransformer
         """The loaded sentence-transformers model (loaded on first access)."""
         if self._model is None:
-            # Never reach for a hub: the machines this runs on have no internet.
-            os.environ.setdefault("HF_HUB_OFFLINE", "1")
-            os.environ.setdefault("TRANSFORMERS_OFFLINE", "1")
-            os.environ.setdefault("TOKENIZERS_PARALLELISM", "false")
-            for noisy in ("transformers", "sentence_transformers", "huggingface_hub"):
-                logging.getLogger(noisy).setLevel(logging.ERROR)
             try:
-                import transformers
-
-                transformers.utils.logging.disable_progress_bar()
+                quiet_offline()
                 from sentence_transformers import SentenceTransformer
 
                 self._model = SentenceTransformer(str(self.path), device="cpu")

@@ -7,14 +7,13 @@ folder to turn it on; quality gains need a real trained model.
 
 from __future__ import annotations
 
-import logging
-import os
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Protocol
 
 import numpy as np
 
+from .embedding import quiet_offline
 from .errors import ModelError
 
 
@@ -38,11 +37,8 @@ class CrossEncoderReranker:
                 f"reranker folder {path} holds no model (no config.json); set "
                 "SOUNDING_RERANKER_PATH to a local cross-encoder folder, or leave it empty"
             )
-        os.environ.setdefault("HF_HUB_OFFLINE", "1")
-        os.environ.setdefault("TRANSFORMERS_OFFLINE", "1")
-        for noisy in ("transformers", "sentence_transformers"):
-            logging.getLogger(noisy).setLevel(logging.ERROR)
         try:
+            quiet_offline()
             from sentence_transformers import CrossEncoder
 
             self._model = CrossEncoder(str(path), device="cpu")
