@@ -11,7 +11,6 @@ chunk rows, removes leftovers and documents without chunks (the next
 
 from __future__ import annotations
 
-import json
 import sqlite3
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -21,7 +20,12 @@ import numpy as np
 
 from .chunking import ChunkSettings
 from .lock import IndexLock
-from .store import DATABASE, IndexWriter, Manifest, lexical_body, vectors_filename
+from .store import DATABASE, IndexWriter, Manifest, vectors_filename
+
+# Documents left without chunks: the index would call them unchanged forever.
+_WITHOUT_CHUNKS = (
+    "FROM documents d WHERE NOT EXISTS (SELECT 1 FROM chunks c WHERE c.document_id = d.id)"
+)
 
 
 @dataclass
@@ -61,10 +65,7 @@ def check_index(index_dir: Path) -> CheckReport:
         fts_ids = np.fromiter((r[0] for r in conn.execute("SELECT rowid FROM chunks_fts")),
                               np.int64)
         _compare(report, "lexical (FTS5) index", chunk_ids, fts_ids)
-        empty = conn.execute(
-            "SELECT count(*) FROM documents d WHERE NOT EXISTS "
-            "(SELECT 1 FROM chunks c WHERE c.document_id = d.id)"
-        ).fetchone()[0]
+        empty = conn.execute(f"SELECT count(*) {_WITHOUT_CHUNKS}").fetchone()[0]
         if empty:
             report.problems.append(f"{empty} documents have no chunks")
         docs = conn.execute("SELECT count(*) FROM documents").fetchone()[0]
@@ -134,38 +135,18 @@ def repair_index(index_dir: Path) -> CheckReport:
     with IndexLock(index_dir), IndexWriter(index_dir, manifest.model, chunking) as writer:
         conn = writer.conn
         done: list[str] = []
-        with writer.db.atomic():
-            empty = [r[0] for r in conn.execute(
-                "SELECT id FROM documents d WHERE NOT EXISTS "
-                "(SELECT 1 FROM chunks c WHERE c.document_id = d.id)")]
-            if empty:
-                writer.remove(empty)
-                done.append(f"removed {len(empty)} documents without chunks "
-                            "(the next `sounding index` adds them again)")
-            conn.execute("DELETE FROM chunks_fts")
-            rows = conn.execute(
-                "SELECT c.id, d.title, c.trail, c.text FROM chunks c "
-                "JOIN documents d ON d.id = c.document_id").fetchall()
-            conn.executemany(
-                "INSERT INTO chunks_fts (rowid, body) VALUES (?, ?)",
-                [(r[0], lexical_body(r[1], json.loads(r[2]), r[3])) for r in rows],
-            )
-            done.append(f"rebuilt the lexical index from {len(rows)} chunks")
+        empty = [r[0] for r in conn.execute(f"SELECT id {_WITHOUT_CHUNKS}")]
+        if empty:
+            writer.remove(empty)
+            done.append(f"removed {len(empty)} documents without chunks "
+                        "(the next `sounding index` adds them again)")
+        done.append(f"rebuilt the lexical index from {writer.rebuild_lexical()} chunks")
         # Publishing rebuilds the vector file from the chunk rows when it is unusable,
         # and brings a usable one in step; old files and leftovers are removed.
-        writer.previous = _without_vectors_if_unreadable(index_dir, manifest)
         published = writer.publish()
         done.append(f"published generation {published.generation} with "
                     f"{published.chunks} vectors")
     after = check_index(index_dir)
     after.repaired = done
     return after
-
-
-def _without_vectors_if_unreadable(index_dir: Path, manifest: Manifest) -> Manifest:
-    try:
-        faiss.read_index(str(index_dir / manifest.vectors_file))
-    except RuntimeError:
-        (index_dir / manifest.vectors_file).unlink(missing_ok=True)
-    return manifest
 

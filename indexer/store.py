@@ -431,6 +431,20 @@ class IndexWriter:
                 ).rowcount
         return removed
 
+    def rebuild_lexical(self) -> int:
+        """Refill the FTS5 index from the chunk rows; how many chunks it now holds."""
+        with self.db.atomic():
+            self.conn.execute("DELETE FROM chunks_fts")
+            rows = self.conn.execute(
+                "SELECT c.id, d.title, c.trail, c.text FROM chunks c "
+                "JOIN documents d ON d.id = c.document_id"
+            ).fetchall()
+            self.conn.executemany(
+                "INSERT INTO chunks_fts (rowid, body) VALUES (?, ?)",
+                [(r[0], lexical_body(r[1], json.loads(r[2]), r[3])) for r in rows],
+            )
+        return len(rows)
+
     def _drop_fts(self, select_ids: str, params: Sequence[object]) -> None:
         """Delete the FTS rows of the chunks that ``select_ids`` selects."""
         self.conn.execute(f"DELETE FROM chunks_fts WHERE rowid IN ({select_ids})", list(params))
