@@ -39,8 +39,8 @@ def create_app(
         enc = embedder if embedder is not None else settings.embedder()
         enc.encode(["warm-up"])  # load weights now, not on the first user's query
         app.state.engine = Engine(
-            settings.index_dir, enc, settings.reload_check_seconds, settings.rrf_k,
-            reranker=settings.reranker(), rerank_depth=settings.rerank_depth,
+            settings.index_dir, enc, settings.searcher_factory(enc),
+            settings.reload_check_seconds,
         )
         app.state.judgments = JudgmentStore(settings.judgments_file)
         try:

@@ -87,15 +87,11 @@ def cmd_index(args: argparse.Namespace) -> int:
 
 
 def cmd_search(args: argparse.Namespace) -> int:
-    from indexer.search import Searcher
     from indexer.store import IndexReader
 
     settings = _settings(args)
     reader = IndexReader(settings.index_dir)
-    searcher = Searcher(
-        reader, settings.embedder(), rrf_k=settings.rrf_k,
-        reranker=settings.reranker(), rerank_depth=settings.rerank_depth,
-    )
+    searcher = settings.searcher_factory(settings.embedder())(reader)
     hits = searcher.search(args.query, args.k, mode=args.mode)
     if args.json:
         print(json.dumps(

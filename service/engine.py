@@ -5,11 +5,11 @@ from __future__ import annotations
 import logging
 import threading
 import time
+from collections.abc import Callable
 from pathlib import Path
 
 from indexer.embedding import Embedder
-from indexer.errors import IndexStoreError, SoundingError
-from indexer.rerank import Reranker
+from indexer.errors import SoundingError
 from indexer.search import Searcher
 from indexer.store import MANIFEST, IndexReader
 
@@ -29,17 +29,13 @@ class Engine:
         self,
         index_dir: Path,
         embedder: Embedder,
+        make_searcher: Callable[[IndexReader], Searcher],
         check_seconds: float = 2.0,
-        rrf_k: int = 60,
-        reranker: Reranker | None = None,
-        rerank_depth: int = 50,
     ) -> None:
         self.index_dir = Path(index_dir)
         self.embedder = embedder
+        self.make_searcher = make_searcher
         self.check_seconds = check_seconds
-        self.rrf_k = rrf_k
-        self.reranker = reranker
-        self.rerank_depth = rerank_depth
         self._searcher: Searcher | None = None
         self._stamp: tuple[int, int] | None = None
         self._checked = 0.0
@@ -58,11 +54,7 @@ class Engine:
         stamp = self._manifest_stamp()
         try:
             # A pinned reader sees one committed generation for as long as it lives.
-            reader = IndexReader(self.index_dir, pinned=True)
-            searcher = Searcher(
-                reader, self.embedder, rrf_k=self.rrf_k,
-                reranker=self.reranker, rerank_depth=self.rerank_depth,
-            )
+            searcher = self.make_searcher(IndexReader(self.index_dir, pinned=True))
         except SoundingError as exc:
             # Keep serving the generation we have; report why the new one is not used.
             self.error = str(exc)
@@ -93,10 +85,3 @@ class Engine:
                     if self._manifest_stamp() != self._stamp:
                         self._load()
         return self._searcher
-
-    def require(self) -> Searcher:
-        """The current searcher; IndexStoreError when no index is loaded."""
-        searcher = self.current()
-        if searcher is None:
-            raise IndexStoreError(self.error or f"no index loaded from {self.index_dir}")
-        return searcher

@@ -45,3 +45,18 @@ class ServiceSettings(IndexSettings):
         from indexer.rerank import CrossEncoderReranker
 
         return CrossEncoderReranker(self.reranker_path, batch_size=self.batch_size)
+
+    def searcher_factory(self, embedder):  # -> Callable[[IndexReader], Searcher]
+        """Make searchers over readers with these settings' ranking options.
+
+        The reranker, if configured, loads once here and serves every searcher.
+        """
+        from indexer.search import Searcher
+
+        reranker = self.reranker()
+
+        def make(reader):
+            return Searcher(reader, embedder, rrf_k=self.rrf_k, reranker=reranker,
+                            rerank_depth=self.rerank_depth)
+
+        return make
