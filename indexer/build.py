@@ -12,11 +12,11 @@ import numpy as np
 from .chunking import Chunk, chunk_document
 from .documents import Document, Skipped
 from .embedding import Embedder, describe
-from .errors import SettingsError
+from .errors import IndexLockedError, SettingsError, SoundingError
 from .loaders import iter_root
 from .lock import IndexLock
 from .settings import IndexSettings
-from .store import IndexWriter
+from .store import IndexWriter, write_last_run
 
 # Documents are embedded and stored in groups of about this many chunks: big
 # enough for full encoder batches, small enough to bound memory; a group's end
@@ -114,7 +114,35 @@ def refresh_index(
     IndexLockedError at once. With ``max_runtime`` (seconds) the run stops at
     the first checkpoint past the limit and publishes what it finished; the
     next run carries on where it stopped.
+
+    The outcome (ok, or failed with the reason) is recorded in the index
+    folder for monitoring; a run refused because another holds the lock
+    changes nothing and records nothing.
     """
+    try:
+        report = _refresh(roots, settings, embedder, rebuild=rebuild, collection=collection,
+                          progress=progress, max_runtime=max_runtime)
+    except IndexLockedError:
+        raise
+    except SoundingError as exc:
+        if settings.index_dir.is_dir():
+            write_last_run(settings.index_dir, "failed", str(exc))
+        raise
+    write_last_run(settings.index_dir, "ok", report.summary(), generation=report.generation,
+                   seconds=round(report.seconds, 3))
+    return report
+
+
+def _refresh(
+    roots: Sequence[Path],
+    settings: IndexSettings,
+    embedder: Embedder,
+    *,
+    rebuild: bool,
+    collection: str | None,
+    progress: Callable[[int, int], None] | None,
+    max_runtime: float | None,
+) -> RefreshReport:
     started = time.monotonic()
     if not roots:
         raise SettingsError("no path to index; name one or more folders or files")

@@ -3,6 +3,7 @@
 Layout of an index folder (``SCHEMA_VERSION`` below)::
 
     manifest.json          what built the index and which generation is current
+    last-run.json          outcome of the last indexing run (for monitoring)
     sounding.db            SQLite: documents, chunks (text, metadata and vector),
                            chunks_fts (FTS5, BM25 over title + trail + text)
     vectors-<gen>.faiss    FAISS IndexIDMap2(IndexFlatIP) over the chunk vectors,
@@ -23,7 +24,7 @@ import sqlite3
 import threading
 import time
 from collections.abc import Iterable, Iterator, Sequence
-from contextlib import contextmanager
+from contextlib import contextmanager, suppress
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -40,6 +41,7 @@ SCHEMA_VERSION = 1
 FORMAT = "sounding-index"
 MANIFEST = "manifest.json"
 DATABASE = "sounding.db"
+LAST_RUN = "last-run.json"
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS documents (
@@ -152,6 +154,26 @@ def _atomic_write(path: Path, data: bytes) -> None:
         fh.flush()
         os.fsync(fh.fileno())
     os.replace(tmp, path)
+
+
+def write_last_run(index_dir: Path, result: str, detail: str = "", **extra: Any) -> None:
+    """Record the outcome of an indexing run (``ok`` or ``failed``) for monitoring.
+
+    Best effort: a full disk that made the run fail may make this fail too,
+    and that must not hide the run's own error.
+    """
+    record = {"finished_at": time.time(), "result": result, "detail": detail, **extra}
+    with suppress(OSError):
+        _atomic_write(Path(index_dir) / LAST_RUN, json.dumps(record).encode())
+
+
+def read_last_run(index_dir: Path) -> dict[str, Any] | None:
+    """The last run's record (``finished_at``, ``result``, ``detail``), or None."""
+    try:
+        data = json.loads((Path(index_dir) / LAST_RUN).read_text("utf-8"))
+    except (OSError, ValueError):
+        return None
+    return data if isinstance(data, dict) else None
 
 
 def check_model(manifest: Manifest, model: dict[str, Any], index_dir: Path) -> None:
