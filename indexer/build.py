@@ -9,10 +9,11 @@ from pathlib import Path
 
 import numpy as np
 
+from .access import AccessRules, parse_tags
 from .chunking import Chunk, chunk_document
 from .documents import Document, Skipped
 from .embedding import Embedder, describe
-from .errors import IndexLockedError, SettingsError, SoundingError
+from .errors import IndexLockedError, LoadError, SettingsError, SoundingError
 from .loaders import iter_root
 from .lock import IndexLock
 from .settings import IndexSettings
@@ -90,6 +91,15 @@ class _Pending:
     collection: str
     chunks: list[Chunk]
     is_new: bool
+    groups: tuple[str, ...] = ()
+    tags: tuple[str, ...] = ()
+
+
+def labels_of(
+    doc: Document, collection: str, rules: AccessRules
+) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """(groups that may read ``doc``, its tags); LoadError when its groups are invalid."""
+    return rules.groups_for(collection, doc.id, doc.metadata), parse_tags(doc.metadata.get("tags"))
 
 
 def refresh_index(
@@ -152,12 +162,14 @@ def _refresh(
     chunking = settings.chunking
     chunking.check(embedder.max_tokens)
     report = RefreshReport()
+    rules = AccessRules.load(settings.access_rules)
     deadline = None if max_runtime is None else started + max_runtime
     with IndexLock(settings.index_dir) as lock, IndexWriter(
         settings.index_dir, describe(embedder), chunking, rebuild=rebuild
     ) as writer:
         report.lock_taken_over = lock.took_over is not None
         known = writer.known()
+        labels = writer.labels()
         seen: dict[str, str] = {}
         pending: list[_Pending] = []
         for root in roots:
@@ -171,16 +183,26 @@ def _refresh(
                         Skipped(item.id, f"duplicate document id, already taken in {seen[item.id]}")
                     )
                     continue
+                try:
+                    groups, tags = labels_of(item, coll, rules)
+                except LoadError as exc:
+                    report.skipped.append(Skipped(item.id, str(exc)))
+                    continue
                 seen[item.id] = str(root)
                 if known.get(item.id) == (coll, item.content_hash):
-                    report.unchanged += 1
+                    if labels.get(item.id) == (groups, tags):
+                        report.unchanged += 1
+                    else:
+                        # Same text, new access rules or tags: no re-embedding needed.
+                        writer.relabel(item.id, groups, tags)
+                        report.updated.append(item.id)
                     continue
                 chunks = chunk_document(item, embedder.tokenizer, chunking)
                 if not chunks:
                     report.skipped.append(Skipped(item.id, "no text"))
                     seen.pop(item.id)
                     continue
-                pending.append(_Pending(item, coll, chunks, item.id not in known))
+                pending.append(_Pending(item, coll, chunks, item.id not in known, groups, tags))
 
         total = sum(len(p.chunks) for p in pending)
         done = 0
@@ -233,6 +255,96 @@ def _embed_and_store(
             else:
                 vectors[j] = next(fresh)
                 report.chunks_embedded += 1
-        writer.put(p.doc, p.collection, p.chunks, vectors)
+        writer.put(p.doc, p.collection, p.chunks, vectors, groups=p.groups, tags=p.tags)
         (report.added if p.is_new else report.updated).append(p.doc.id)
     return sum(len(p.chunks) for p in group)
+
+
+@dataclass
+class PushReport:
+    """What one pushed change did."""
+
+    document_id: str
+    action: str  # "added", "updated", "unchanged" or "removed"
+    chunks: int = 0
+    chunks_embedded: int = 0
+    generation: int = 0
+
+
+def _locked(index_dir: Path, wait_seconds: float) -> IndexLock:
+    """The index lock, waiting up to ``wait_seconds`` for a running re-index to finish."""
+    deadline = time.monotonic() + wait_seconds
+    while True:
+        try:
+            return IndexLock(index_dir).acquire()
+        except IndexLockedError:
+            if time.monotonic() >= deadline:
+                raise
+            time.sleep(0.05)
+
+
+def push_document(
+    settings: IndexSettings,
+    embedder: Embedder,
+    doc: Document,
+    collection: str,
+    *,
+    groups: tuple[str, ...] | None = None,
+    tags: tuple[str, ...] | None = None,
+    wait_seconds: float = 10.0,
+) -> PushReport:
+    """Index one document that arrived outside a folder run, and publish at once.
+
+    The same pipeline as a folder run (chunking, reuse of unchanged chunks'
+    vectors, one transaction, a new generation). ``groups`` / ``tags`` given
+    here win over the document's own; otherwise the access rules apply as
+    for a file. Waits up to ``wait_seconds`` for a running re-index, then
+    raises IndexLockedError. Raises LoadError when the document has no text
+    or invalid groups.
+    """
+    chunking = settings.chunking
+    chunking.check(embedder.max_tokens)
+    rules = AccessRules.load(settings.access_rules)
+    own_groups, own_tags = labels_of(doc, collection, rules)
+    groups = own_groups if groups is None else groups
+    tags = own_tags if tags is None else tags
+    chunks = chunk_document(doc, embedder.tokenizer, chunking)
+    if not chunks:
+        raise LoadError("no text")
+    with _locked(settings.index_dir, wait_seconds), IndexWriter(
+        settings.index_dir, describe(embedder), chunking
+    ) as writer:
+        known = writer.known().get(doc.id)
+        if known is not None and known[0] != collection:
+            raise SettingsError(
+                f"document {doc.id!r} belongs to collection {known[0]!r}, not {collection!r}; "
+                "push it to its own collection or delete it first"
+            )
+        if known == (collection, doc.content_hash):
+            if writer.labels().get(doc.id) == (groups, tags):
+                manifest = writer.previous
+                return PushReport(doc.id, "unchanged", len(chunks), 0,
+                                  manifest.generation if manifest else 0)
+            writer.relabel(doc.id, groups, tags)
+            manifest = writer.publish()
+            return PushReport(doc.id, "updated", len(chunks), 0, manifest.generation)
+        report = RefreshReport()
+        pending = _Pending(doc, collection, chunks, known is None, groups, tags)
+        _embed_and_store(writer, embedder, [pending], report)
+        manifest = writer.publish()
+    write_last_run(settings.index_dir, "ok", f"pushed {doc.id}", generation=manifest.generation)
+    return PushReport(doc.id, "added" if known is None else "updated", len(chunks),
+                      report.chunks_embedded, manifest.generation)
+
+
+def delete_document(
+    settings: IndexSettings, embedder: Embedder, document_id: str, *, wait_seconds: float = 10.0
+) -> PushReport | None:
+    """Remove one document and publish at once; None when it is not in the index."""
+    with _locked(settings.index_dir, wait_seconds), IndexWriter(
+        settings.index_dir, describe(embedder), settings.chunking
+    ) as writer:
+        if not writer.remove([document_id]):
+            return None
+        manifest = writer.publish()
+    return PushReport(document_id, "removed", generation=manifest.generation)

@@ -83,7 +83,7 @@ class IndexLock:
             self._fh = None
 
     def __enter__(self) -> IndexLock:
-        return self.acquire()
+        return self if self._fh is not None else self.acquire()
 
     def __exit__(self, *exc: object) -> None:
         self.release()

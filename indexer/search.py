@@ -18,7 +18,10 @@ from .fusion import RRF_K, fusion_depth, tiered_fusion
 from .lexical import fts5_query
 from .rerank import Reranker
 from .rerank import rerank as _rerank
+from .selection import SearchFilter
 from .store import IndexReader, check_model
+
+__all__ = ["MODES", "Hit", "Mode", "SearchFilter", "Searcher", "check_mode"]
 
 Mode = Literal["dense", "lexical", "hybrid"]
 MODES: tuple[Mode, ...] = ("dense", "lexical", "hybrid")
@@ -41,6 +44,9 @@ class Hit:
     trail: tuple[str, ...]
     text: str
     page: int | None
+    ordinal: int = 0  # position in its document; consecutive ordinals are adjacent windows
+    tokens: int = 0  # word pieces of the chunk
+    kind: str = ""  # markdown, html, pdf, text or corpus
 
 
 def check_mode(mode: str) -> Mode:
@@ -76,29 +82,44 @@ class Searcher:
 
     # -- chunk rankings -------------------------------------------------------
 
-    def _dense(self, queries: Sequence[str], depth: int) -> list[list[tuple[int, float]]]:
-        D, I = self.reader.search(self.embedder.encode(list(queries)), depth)
+    def _dense(
+        self, queries: Sequence[str], depth: int, where: SearchFilter | None = None
+    ) -> list[list[tuple[int, float]]]:
+        allowed = self.reader.allowed_chunks(where)
+        if allowed is not None and not len(allowed):
+            return [[] for _ in queries]
+        D, I = self.reader.search(
+            self.embedder.encode(list(queries)), depth, selector=self.reader.selector(where)
+        )
         return [
             [(int(i), float(s)) for s, i in zip(d, ids, strict=True) if i >= 0]
             for d, ids in zip(D, I, strict=True)
         ]
 
-    def _lexical(self, query: str, depth: int) -> list[tuple[int, float]]:
+    def _lexical(
+        self, query: str, depth: int, where: SearchFilter | None = None
+    ) -> list[tuple[int, float]]:
         match = fts5_query(query)
         if match is None:
             return []
-        scores, ids = self.reader.lexical(match, depth)
+        scores, ids = self.reader.lexical(match, depth, where)
         return list(zip(ids.tolist(), scores.tolist(), strict=True))
 
-    def ranked_chunks(self, query: str, depth: int, mode: Mode) -> list[tuple[int, float]]:
-        """(chunk id, score) pairs, best first, at most ``depth`` of them."""
+    def ranked_chunks(
+        self, query: str, depth: int, mode: Mode, where: SearchFilter | None = None
+    ) -> list[tuple[int, float]]:
+        """(chunk id, score) pairs, best first, at most ``depth`` of them.
+
+        Only chunks that ``where`` admits are ranked: the filter applies
+        before the cut at ``depth``, so a filtered search still fills it.
+        """
         if mode == "dense":
-            return self._dense([query], depth)[0]
+            return self._dense([query], depth, where)[0]
         if mode == "lexical":
-            return self._lexical(query, depth)
+            return self._lexical(query, depth, where)
         pool = max(depth, _FUSION_DEPTH)
-        dense = [c for c, _ in self._dense([query], pool)[0]]
-        lexical = [c for c, _ in self._lexical(query, pool)]
+        dense = [c for c, _ in self._dense([query], pool, where)[0]]
+        lexical = [c for c, _ in self._lexical(query, pool, where)]
         tier = fusion_depth(int(self.reader.vectors.ntotal))
         return tiered_fusion([dense, lexical], tier, k=self.rrf_k)[:depth]
 
@@ -112,8 +133,12 @@ class Searcher:
         mode: str = "hybrid",
         max_per_document: int | None = None,
         rerank: bool | None = None,
+        where: SearchFilter | None = None,
     ) -> list[Hit]:
         """The ``k`` passages that best match ``query``, best first.
+
+        ``where`` restricts the documents searched (the caller's groups and
+        the user's filters); None searches everything.
 
         ``rerank`` re-orders the top ``rerank_depth`` candidates with the
         cross-encoder; None means "when one is configured". Asking for it
@@ -133,7 +158,7 @@ class Searcher:
         use_reranker = self.reranker is not None and rerank is not False
         if use_reranker:
             depth = max(depth, self.rerank_depth)
-        ranked = self.ranked_chunks(query, depth, mode)
+        ranked = self.ranked_chunks(query, depth, mode, where)
         chunks = self.reader.chunks([c for c, _ in ranked])
         if use_reranker:
             pool = [(c, chunks[c].text) for c, _ in ranked[: self.rerank_depth] if c in chunks]
@@ -146,6 +171,8 @@ class Searcher:
             doc = docs.get(chunk.document_id) if chunk else None
             if chunk is None or doc is None:
                 continue  # removed after this generation's vectors were written
+            if where is not None and not where.admits(doc):
+                continue  # never reached: the rankings are filtered; a second check
             if max_per_document is not None:
                 if per_doc.get(doc.id, 0) >= max_per_document:
                     continue
@@ -162,6 +189,9 @@ class Searcher:
                     trail=chunk.trail,
                     text=chunk.text,
                     page=chunk.page,
+                    ordinal=chunk.ordinal,
+                    tokens=chunk.tokens,
+                    kind=doc.kind,
                 )
             )
             if len(hits) == k:

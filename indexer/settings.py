@@ -42,6 +42,12 @@ class IndexSettings(BaseSettings):
         description="SQLite file of relevance judgments from POST /feedback; empty means "
         "judgments.db in the index folder.",
     )
+    access_rules: Path | None = Field(
+        None,
+        description="YAML file of folder rules saying which groups may read which documents "
+        "(see indexer/access.py); empty means only front matter restricts. Mirror the source "
+        "system's permissions.",
+    )
     max_file_bytes: int = Field(
         50 * 2**20, ge=1, description="Files larger than this are skipped with a reason."
     )

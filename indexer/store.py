@@ -26,6 +26,7 @@ import time
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager, suppress
 from dataclasses import dataclass
+from functools import cached_property
 from pathlib import Path
 from typing import Any
 
@@ -33,11 +34,15 @@ import faiss
 import numpy as np
 import sqlite_utils
 
+from .access import dump
 from .chunking import Chunk, ChunkSettings
 from .documents import Document
 from .errors import IndexCorruptError, IndexMismatchError, IndexMissingError, IndexStoreError
+from .selection import SearchFilter
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
+# Filters whose allowed chunk ids a reader keeps (one entry per distinct caller groups + filter).
+_FILTER_CACHE = 64
 FORMAT = "sounding-index"
 MANIFEST = "manifest.json"
 DATABASE = "sounding.db"
@@ -53,7 +58,10 @@ CREATE TABLE IF NOT EXISTS documents (
     modified REAL NOT NULL,
     content_hash TEXT NOT NULL,
     metadata TEXT NOT NULL DEFAULT '{}',
-    indexed_at REAL NOT NULL
+    indexed_at REAL NOT NULL,
+    -- JSON lists: who may read it ([] = everyone), and tags for filtering.
+    groups TEXT NOT NULL DEFAULT '[]',
+    tags TEXT NOT NULL DEFAULT '[]'
 );
 CREATE INDEX IF NOT EXISTS documents_collection ON documents(collection);
 CREATE TABLE IF NOT EXISTS chunks (
@@ -365,6 +373,21 @@ class IndexWriter:
         rows = self.conn.execute("SELECT id, collection, content_hash FROM documents")
         return {r[0]: (r[1], r[2]) for r in rows}
 
+    def labels(self) -> dict[str, tuple[tuple[str, ...], tuple[str, ...]]]:
+        """Every stored document id with its (groups, tags)."""
+        rows = self.conn.execute("SELECT id, groups, tags FROM documents")
+        return {r[0]: (tuple(json.loads(r[1])), tuple(json.loads(r[2]))) for r in rows}
+
+    def relabel(self, document_id: str, groups: Sequence[str], tags: Sequence[str]) -> None:
+        """Change who may read a document, and its tags, without touching its chunks."""
+        try:
+            self.conn.execute(
+                "UPDATE documents SET groups = ?, tags = ? WHERE id = ?",
+                [dump(groups), dump(tags), document_id],
+            )
+        except sqlite3.Error as exc:
+            raise self._write_failed(exc) from exc
+
     def stored_vectors(self, document_id: str) -> dict[str, np.ndarray]:
         """Vectors of a document's current chunks by embed hash, for reuse."""
         rows = self.conn.execute(
@@ -379,16 +402,32 @@ class IndexWriter:
         )
 
     def put(
-        self, doc: Document, collection: str, chunks: Sequence[Chunk], vectors: np.ndarray
+        self,
+        doc: Document,
+        collection: str,
+        chunks: Sequence[Chunk],
+        vectors: np.ndarray,
+        *,
+        groups: Sequence[str] = (),
+        tags: Sequence[str] = (),
     ) -> None:
-        """Store ``doc`` and its chunks, replacing any earlier version."""
+        """Store ``doc`` and its chunks, replacing any earlier version.
+
+        ``groups`` may read it (none: everyone); ``tags`` are for filtering.
+        """
         try:
-            self._put(doc, collection, chunks, vectors)
+            self._put(doc, collection, chunks, vectors, groups, tags)
         except (sqlite3.Error, OSError) as exc:
             raise self._write_failed(exc) from exc
 
     def _put(
-        self, doc: Document, collection: str, chunks: Sequence[Chunk], vectors: np.ndarray
+        self,
+        doc: Document,
+        collection: str,
+        chunks: Sequence[Chunk],
+        vectors: np.ndarray,
+        groups: Sequence[str],
+        tags: Sequence[str],
     ) -> None:
         if len(chunks) != len(vectors):
             raise ValueError("one vector per chunk")
@@ -410,6 +449,8 @@ class IndexWriter:
                     "content_hash": doc.content_hash,
                     "metadata": json.dumps(doc.metadata, ensure_ascii=False, default=str),
                     "indexed_at": time.time(),
+                    "groups": dump(groups),
+                    "tags": dump(tags),
                 },
                 pk="id",
             )
@@ -578,6 +619,8 @@ class DocumentRecord:
     content_hash: str
     metadata: dict[str, Any]
     indexed_at: float
+    groups: tuple[str, ...] = ()
+    tags: tuple[str, ...] = ()
 
 
 def _chunk(row: sqlite3.Row) -> ChunkRecord:
@@ -603,6 +646,8 @@ def _document(row: sqlite3.Row) -> DocumentRecord:
         content_hash=row["content_hash"],
         metadata=json.loads(row["metadata"]),
         indexed_at=row["indexed_at"],
+        groups=tuple(json.loads(row["groups"])),
+        tags=tuple(json.loads(row["tags"])),
     )
 
 
@@ -636,6 +681,8 @@ class IndexReader:
                 "rebuild it with `sounding index --rebuild`"
             )
         self._local = threading.local()
+        self._allowed: dict[tuple[Any, ...], tuple[np.ndarray, faiss.IDSelector]] = {}
+        self._cache_lock = threading.Lock()
         self._pinned: sqlite3.Connection | None = None
         self._pin_lock = threading.Lock()
         if pinned:
@@ -695,28 +742,110 @@ class IndexReader:
         docs = self._rows("SELECT count(*) FROM documents")[0][0]
         return int(docs), int(self.vectors.ntotal)
 
-    def search(self, queries: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
-        """FAISS search: ``D`` scores and ``I`` chunk ids, shape (m, k); -1 pads."""
+    def search(
+        self, queries: np.ndarray, k: int, *, selector: faiss.IDSelector | None = None
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """FAISS search: ``D`` scores and ``I`` chunk ids, shape (m, k); -1 pads.
+
+        With ``selector`` only the chunk ids it selects are ranked.
+        """
         queries = np.ascontiguousarray(queries, dtype=np.float32)
         if queries.ndim != 2 or queries.shape[1] != self.dimension:
             raise ValueError(f"queries must have shape (m, {self.dimension})")
         k = max(1, min(k, int(self.vectors.ntotal) or 1))
-        return self.vectors.search(queries, k)
+        if selector is None:
+            return self.vectors.search(queries, k)
+        return self.vectors.search(queries, k, params=faiss.SearchParameters(sel=selector))
 
-    def lexical(self, match: str, k: int) -> tuple[np.ndarray, np.ndarray]:
+    def lexical(
+        self, match: str, k: int, where: SearchFilter | None = None
+    ) -> tuple[np.ndarray, np.ndarray]:
         """BM25 search of the chunks: scores (higher is better) and chunk ids, best first.
 
         ``match`` must be a safe FTS5 expression (see :mod:`indexer.lexical`).
+        With ``where``, only chunks of documents it admits are ranked (the
+        condition is part of the query, so the top ``k`` are all admitted).
         """
-        rows = self._rows(
-            "SELECT rowid, bm25(chunks_fts) FROM chunks_fts WHERE chunks_fts MATCH ? "
-            "ORDER BY bm25(chunks_fts) LIMIT ?",
-            [match, int(k)],
-        )
+        if self.allowed_chunks(where) is None:
+            rows = self._rows(
+                "SELECT rowid, bm25(chunks_fts) FROM chunks_fts WHERE chunks_fts MATCH ? "
+                "ORDER BY bm25(chunks_fts) LIMIT ?",
+                [match, int(k)],
+            )
+        else:
+            cond, params = where.sql()  # type: ignore[union-attr]
+            rows = self._rows(
+                "SELECT f.rowid, bm25(chunks_fts) FROM chunks_fts f "
+                "JOIN chunks c ON c.id = f.rowid JOIN documents d ON d.id = c.document_id "
+                f"WHERE chunks_fts MATCH ? AND {cond} ORDER BY bm25(chunks_fts) LIMIT ?",
+                [match, *params, int(k)],
+            )
         # FTS5's bm25() is negative, more negative is better; flip it for callers.
         scores = np.fromiter((-r[1] for r in rows), dtype=np.float32, count=len(rows))
         ids = np.fromiter((r[0] for r in rows), dtype=np.int64, count=len(rows))
         return scores, ids
+
+    @cached_property
+    def restricted(self) -> bool:
+        """Whether any document of this generation is readable by some groups only."""
+        return bool(self._rows("SELECT 1 FROM documents WHERE groups != '[]' LIMIT 1"))
+
+    def _admitted(self, where: SearchFilter) -> tuple[np.ndarray, faiss.IDSelector] | None:
+        """Sorted chunk ids ``where`` admits and a FAISS selector of them; None for all.
+
+        Cached per filter for the life of this reader (one generation).
+        """
+        if not where.narrows and (where.groups is None or not self.restricted):
+            return None
+        key = where.key
+        with self._cache_lock:
+            entry = self._allowed.pop(key, None)
+            if entry is not None:
+                self._allowed[key] = entry  # most recently used last
+                return entry
+        cond, params = where.sql()
+        rows = self._rows(
+            f"SELECT c.id FROM chunks c JOIN documents d ON d.id = c.document_id WHERE {cond} "
+            "ORDER BY c.id", params,
+        )
+        ids = np.ascontiguousarray(np.fromiter((r[0] for r in rows), dtype=np.int64,
+                                                count=len(rows)))
+        # FAISS copies the ids into the selector.
+        entry = (ids, faiss.IDSelectorBatch(len(ids), faiss.swig_ptr(ids)))
+        with self._cache_lock:
+            self._allowed[key] = entry
+            while len(self._allowed) > _FILTER_CACHE:
+                self._allowed.pop(next(iter(self._allowed)))
+        return entry
+
+    def allowed_chunks(self, where: SearchFilter | None) -> np.ndarray | None:
+        """Sorted ids of the chunks ``where`` admits; None when it admits every chunk."""
+        entry = None if where is None else self._admitted(where)
+        return None if entry is None else entry[0]
+
+    def selector(self, where: SearchFilter | None) -> faiss.IDSelector | None:
+        """A FAISS id selector of the chunks ``where`` admits; None when all are."""
+        entry = None if where is None else self._admitted(where)
+        return None if entry is None else entry[1]
+
+    def visible_counts(self, where: SearchFilter) -> tuple[int, int]:
+        """(documents, chunks) that ``where`` admits."""
+        cond, params = where.sql()
+        docs = self._rows(f"SELECT count(*) FROM documents d WHERE {cond}", params)[0][0]
+        chunks = self._rows(
+            f"SELECT count(*) FROM chunks c JOIN documents d ON d.id = c.document_id WHERE {cond}",
+            params,
+        )[0][0]
+        return int(docs), int(chunks)
+
+    def collections(self, where: SearchFilter) -> list[tuple[str, int]]:
+        """(collection, documents) pairs of the documents ``where`` admits, by name."""
+        cond, params = where.sql()
+        rows = self._rows(
+            f"SELECT d.collection, count(*) FROM documents d WHERE {cond} "
+            "GROUP BY d.collection ORDER BY d.collection", params,
+        )
+        return [(r[0], int(r[1])) for r in rows]
 
     def chunks(self, ids: Sequence[int]) -> dict[int, ChunkRecord]:
         """Chunk records by id; ids no longer stored are left out."""

@@ -23,7 +23,7 @@ from ._markdown import parse_markdown
 from ._pdf import parse_pdf
 from ._text import parse_text
 
-__all__ = ["SUPPORTED_SUFFIXES", "iter_root", "load_file"]
+__all__ = ["SUPPORTED_SUFFIXES", "iter_root", "load_file", "parse_document"]
 
 KINDS: dict[str, str] = {
     ".md": "markdown",
@@ -263,9 +263,24 @@ def _corpus_documents(path: Path, rel: str, st: os.stat_result) -> list[Document
 
 def _document(path: Path, doc_id: str, kind: str, data: bytes, modified: float) -> Document:
     """Parse the bytes of a non-corpus file into a Document; LoadError if unusable."""
+    return parse_document(data, kind, doc_id=doc_id, name=path.name,
+                          source=os.path.abspath(path), modified=modified)
+
+
+def parse_document(
+    data: bytes, kind: str, *, doc_id: str, name: str, source: str, modified: float
+) -> Document:
+    """Parse one document's bytes (``kind``: markdown, html, pdf or text).
+
+    What a file on disk goes through, for documents that arrive otherwise
+    (pushed over HTTP). ``name`` gives the fallback title; LoadError with the
+    reason when the bytes are unusable.
+    """
+    if kind not in ("markdown", "html", "pdf", "text"):
+        raise LoadError(f"unsupported kind {kind!r}; use markdown, html, pdf or text")
     if not data.strip():
         raise LoadError(NO_TEXT)
-    stem = PurePath(path.name).stem
+    stem = PurePath(name).stem
     warnings: list[str] = []
     if kind == "pdf":
         parsed: Parsed = parse_pdf(data, stem)
@@ -289,7 +304,7 @@ def _document(path: Path, doc_id: str, kind: str, data: bytes, modified: float) 
     return Document(
         id=doc_id,
         title=parsed.title,
-        source=os.path.abspath(path),
+        source=source,
         modified=modified,
         content_hash=hashlib.sha256(data).hexdigest(),
         kind=kind,

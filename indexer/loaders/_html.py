@@ -199,10 +199,11 @@ class _Extractor(HTMLParser):
     def _meta(self, attr: dict[str, str]) -> None:
         name = attr.get("name", "").strip().lower()
         content = attr.get("content", "").strip()
-        if not content or name not in ("keywords", "description", "author"):
+        if not content or name not in ("keywords", "description", "author", "groups"):
             return
         key = "tags" if name == "keywords" else name
         if key not in self.meta:
+            # groups stay a string: indexer.access validates them (and fails closed).
             self.meta[key] = as_tags(content) if key == "tags" else _SPACES.sub(" ", content)
 
     def _block(self, tag: str) -> None:

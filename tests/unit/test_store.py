@@ -13,7 +13,7 @@ from indexer.chunking import Chunk, ChunkSettings
 from indexer.documents import Document, Section
 from indexer.embedding import HashingEmbedder, describe
 from indexer.errors import IndexCorruptError, IndexMismatchError, IndexMissingError
-from indexer.store import DATABASE, MANIFEST, IndexReader, IndexWriter, Manifest
+from indexer.store import DATABASE, MANIFEST, SCHEMA_VERSION, IndexReader, IndexWriter, Manifest
 
 
 def make_doc(i: int, n_chunks: int) -> tuple[Document, list[Chunk]]:
@@ -124,7 +124,7 @@ def test_chunk_ids_are_never_reused(tmp_path: Path) -> None:
 def test_manifest_records_model_chunking_and_schema(tmp_path: Path) -> None:
     build(tmp_path, n_docs=2)
     data = json.loads((tmp_path / MANIFEST).read_text())
-    assert data["format"] == "sounding-index" and data["schema_version"] == 1
+    assert data["format"] == "sounding-index" and data["schema_version"] == SCHEMA_VERSION
     assert data["model"] == MODEL
     assert data["chunking"] == {"max_tokens": 256, "overlap": 32}
     assert data["vectors_file"] == "vectors-1.faiss" and (tmp_path / "vectors-1.faiss").is_file()
