@@ -8,6 +8,7 @@ message as one line and exits non-zero, the service turns it into a 4xx.
     ├── ModelError                 the encoder folder is missing or unreadable
     ├── LoadError                  one file cannot be read; the run skips it
     ├── QueryError                 a search request cannot be answered as asked
+    ├── AccessError                an API key or group is malformed, unknown or refused
     └── IndexStoreError            the on-disk index cannot be used
         ├── IndexMissingError      no index at the given folder
         ├── IndexMismatchError     index built with another model, dimension
@@ -43,6 +44,12 @@ class LoadError(SoundingError):
 
 class QueryError(SoundingError):
     """A search request cannot be answered as asked."""
+
+    exit_code = 2
+
+
+class AccessError(SoundingError):
+    """An API key, key name, scope or group is malformed, unknown or refused."""
 
     exit_code = 2
 

@@ -16,6 +16,7 @@ from indexer.embedding import Embedder
 from indexer.errors import QueryError, SoundingError
 from indexer.judgments import JudgmentStore
 
+from .auth import open_keys
 from .engine import Engine
 from .limits import RequestLimits
 from .routes import documents, feedback, health, search
@@ -33,6 +34,7 @@ def create_app(
     ``embedder`` lets tests pass a seeded fake instead of the real encoder.
     """
     settings = settings or ServiceSettings()
+    settings.check_access()  # no keys beyond loopback: refuse before anything starts
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
@@ -43,9 +45,11 @@ def create_app(
             settings.reload_check_seconds,
         )
         app.state.judgments = JudgmentStore(settings.judgments_file)
+        app.state.keys = open_keys(settings)
         try:
             yield
         finally:
+            app.state.keys.close()
             app.state.judgments.close()
 
     app = FastAPI(

@@ -7,7 +7,6 @@ own errors into one line on stderr and a non-zero exit code.
 from __future__ import annotations
 
 import argparse
-import ipaddress
 import json
 import os
 import sys
@@ -24,7 +23,7 @@ def _settings(args: argparse.Namespace):
     from .settings import ServiceSettings
 
     overrides = {}
-    for name in ("index_dir", "model_path", "host", "port"):
+    for name in ("index_dir", "model_path", "host", "port", "keys_path"):
         value = getattr(args, name, None)
         if value is not None:
             overrides[name] = value
@@ -198,31 +197,76 @@ def cmd_judgments(args: argparse.Namespace) -> int:
     return 0
 
 
-def _is_loopback(host: str) -> bool:
-    if host == "localhost":
-        return True
-    try:
-        return ipaddress.ip_address(host).is_loopback
-    except ValueError:
-        return False
-
-
 def cmd_serve(args: argparse.Namespace) -> int:
     import uvicorn
 
     from .app import create_app
 
     settings = _settings(args)
-    if not _is_loopback(settings.host):
+    settings.check_access()  # exit 2 before anything starts when keys are off beyond loopback
+    if not settings.on_loopback:
         print(
-            f"sounding: caution: listening on {settings.host}: anyone who can reach port "
-            f"{settings.port} can read every indexed passage. Restrict access to this port "
-            "as your organisation's policies require.",
+            f"sounding: caution: listening on {settings.host}: every endpoint but /health "
+            "needs an API key, but keys travel in clear over plain HTTP; put TLS in front of "
+            f"port {settings.port} as your organisation's policies require.",
             file=sys.stderr,
         )
     uvicorn.run(
         create_app(settings), host=settings.host, port=settings.port, log_level=settings.log_level
     )
+    return 0
+
+
+def cmd_keys_create(args: argparse.Namespace) -> int:
+    from .keys import KeyStore
+
+    settings = _settings(args)
+    with KeyStore(settings.keys_file) as store:
+        record, secret = store.create(args.name, args.scope, args.groups, args.act_for)
+    print(secret)
+    groups = ",".join(sorted(record.groups)) or "none"
+    print(f"sounding: created key {record.name!r} (id {record.id}, scope {record.scope}, "
+          f"groups {groups}{', act-for' if record.act_for else ''}); store the secret above "
+          "safely now: it is not shown again", file=sys.stderr)
+    return 0
+
+
+def cmd_keys_list(args: argparse.Namespace) -> int:
+    from .keys import KeyStore
+
+    settings = _settings(args)
+    if not settings.keys_file.is_file():
+        raise SettingsError(f"no keys file at {settings.keys_file}; create a key with "
+                            "`sounding keys create --name NAME --scope read`")
+    with KeyStore(settings.keys_file) as store:
+        records = store.list()
+    if args.json:
+        print(json.dumps([r.to_json() for r in records], indent=2))
+        return 0
+    if not records:
+        print("no keys")
+    for r in records:
+        j = r.to_json()
+        state = f"revoked {j['revoked_at']}" if r.revoked else "live"
+        print(f"{r.id}  {r.name:<20} {r.scope:<5}  groups={','.join(j['groups']) or '-'}"
+              f"{'  act-for' if r.act_for else ''}  created {j['created_at']}  {state}")
+    return 0
+
+
+def cmd_keys_revoke(args: argparse.Namespace) -> int:
+    from .keys import KeyStore
+
+    settings = _settings(args)
+    if not settings.keys_file.is_file():
+        raise SettingsError(f"no keys file at {settings.keys_file}; nothing to revoke")
+    with KeyStore(settings.keys_file) as store:
+        before = {r.id: r.revoked for r in store.list()}
+        record = store.revoke(args.key)
+    if before.get(record.id):
+        print(f"key {record.name!r} ({record.id}) was revoked already")
+    else:
+        print(f"revoked key {record.name!r} ({record.id}); a running service refuses it "
+              "from its next request")
     return 0
 
 
@@ -338,6 +382,56 @@ def _parser() -> argparse.ArgumentParser:
                         epilog="example:\n  sounding judgments export team-set")
     e.add_argument("out", metavar="OUT_DIR")
     e.set_defaults(func=cmd_judgments)
+
+    keyfile = argparse.ArgumentParser(add_help=False)
+    keyfile.add_argument("--index", dest="index_dir", metavar="DIR",
+                         help="index folder whose keys.db to use (default: $SOUNDING_INDEX_DIR "
+                         "or ./sounding-index)")
+    keyfile.add_argument("--keys", dest="keys_path", metavar="FILE",
+                         help="keys file (default: $SOUNDING_KEYS_PATH or DIR/keys.db)")
+    p = sub.add_parser(
+        "keys", formatter_class=fmt,
+        help="create, list and revoke API keys",
+        description="API keys for the service: each has a scope (read < write < admin), the "
+        "groups whose restricted documents it may read, and optionally the act-for right "
+        "(send an end user's groups in X-Sounding-On-Behalf-Of). Only a salted scrypt hash "
+        "of each key is stored.",
+        epilog="examples:\n  sounding keys create --name wiki-search --scope read --groups hr\n"
+        "  sounding keys list\n  sounding keys revoke wiki-search",
+    )
+    ksub = p.add_subparsers(dest="action", metavar="ACTION", required=True)
+    k = ksub.add_parser(
+        "create", parents=[keyfile], formatter_class=fmt,
+        help="make a key and print its secret once",
+        description="Make a key and print its secret on stdout, once: only its hash is kept.",
+        epilog="examples:\n  sounding keys create --name ana --scope read --groups hr,finance\n"
+        "  sounding keys create --name chat-bot --scope read --act-for > chat-bot.key",
+    )
+    k.add_argument("--name", required=True, help="unique name: letters, digits, '.', '_', '-'")
+    k.add_argument("--scope", required=True, metavar="read|write|admin",
+                   help="read: search and read; write: also push and delete documents; "
+                   "admin: everything")
+    k.add_argument("--groups", metavar="G1,G2", default="",
+                   help="groups whose restricted documents the key may read (default: none)")
+    k.add_argument("--act-for", action="store_true",
+                   help="the key may send an end user's groups in X-Sounding-On-Behalf-Of")
+    k.set_defaults(func=cmd_keys_create)
+    k = ksub.add_parser(
+        "list", parents=[keyfile], formatter_class=fmt,
+        help="show every key (never secrets)",
+        description="Show every key, live and revoked: id, name, scope, groups, act-for.",
+        epilog="example:\n  sounding keys list --json",
+    )
+    k.add_argument("--json", action="store_true", help="print a JSON list")
+    k.set_defaults(func=cmd_keys_list)
+    k = ksub.add_parser(
+        "revoke", parents=[keyfile], formatter_class=fmt,
+        help="revoke a key by name or id; a running service refuses it at once",
+        description="Revoke the live key of that name, or the key of that id.",
+        epilog="example:\n  sounding keys revoke chat-bot",
+    )
+    k.add_argument("key", metavar="NAME", help="a live key's name, or a key id")
+    k.set_defaults(func=cmd_keys_revoke)
     return parser
 
 

@@ -2,19 +2,22 @@
 
 from __future__ import annotations
 
+import ipaddress
 from pathlib import Path
 
 from pydantic import Field
 
+from indexer.errors import SettingsError
 from indexer.settings import IndexSettings
 
 
 class ServiceSettings(IndexSettings):
     """Index settings plus where the service listens and what it accepts.
 
-    The default host is loopback on purpose: anyone who can reach the port
-    can read every indexed passage. Bind to another address only behind the
-    access rules your organisation requires.
+    The default host is loopback on purpose, and API keys are required
+    (``require_keys``) wherever the service listens; keys travel in clear, so
+    bind to another address only behind TLS and the access rules your
+    organisation requires.
     """
 
     host: str = Field("127.0.0.1", description="Address to listen on; loopback by default.")
@@ -37,6 +40,41 @@ class ServiceSettings(IndexSettings):
     max_json_depth: int = Field(
         32, ge=1, le=1000, description="Deepest nesting of a JSON body accepted; deeper is a 422."
     )
+    require_keys: bool = Field(
+        True,
+        description="Every endpoint but /health needs an API key. May be false only when the "
+        "service listens on loopback: then callers without a key see unrestricted documents.",
+    )
+    keys_path: Path | None = Field(
+        None, description="SQLite file of API keys; empty means keys.db in the index folder."
+    )
+
+    @property
+    def keys_file(self) -> Path:
+        """Where API keys (their salted hashes) are kept."""
+        from .keys import FILENAME
+
+        return self.keys_path or self.index_dir / FILENAME
+
+    @property
+    def on_loopback(self) -> bool:
+        """Whether ``host`` is a loopback address (or ``localhost``): only this machine."""
+        if self.host == "localhost":
+            return True
+        try:
+            return ipaddress.ip_address(self.host).is_loopback
+        except ValueError:  # any other name may resolve to a reachable address
+            return False
+
+    def check_access(self) -> None:
+        """Refuse to serve without keys anywhere but loopback (SettingsError)."""
+        if not self.require_keys and not self.on_loopback:
+            raise SettingsError(
+                f"require_keys is false but the service would listen on {self.host}: keys may "
+                "be turned off only on loopback (127.0.0.1); unset SOUNDING_REQUIRE_KEYS "
+                "or listen on 127.0.0.1"
+            )
+
 
     def reranker(self):  # -> CrossEncoderReranker | None
         """Load the configured cross-encoder, or None when none is configured."""
