@@ -75,6 +75,12 @@ class Engine:
         # (IndexReader.__del__), so requests in flight finish on their generation.
         del old
 
+    def reload(self) -> None:
+        """Load the newest generation now (after this process published one itself)."""
+        with self._lock:
+            self._checked = time.monotonic()
+            self._load()
+
     def current(self) -> Searcher | None:
         """The searcher of the newest loaded generation, or None if there is no index."""
         now = time.monotonic()

@@ -54,11 +54,14 @@ class RequestLimits:
         app: ASGIApp,
         max_body_bytes: int = DEFAULT_MAX_BODY_BYTES,
         max_json_depth: int = DEFAULT_MAX_JSON_DEPTH,
+        max_upload_bytes: int | None = None,
     ) -> None:
         if max_body_bytes < 1 or max_json_depth < 1:
             raise ValueError("max_body_bytes and max_json_depth must be at least 1")
         self.app = app
         self.max_body_bytes = max_body_bytes
+        # Documents pushed with PUT /documents/{id} may be larger than a query.
+        self.max_upload_bytes = max_upload_bytes or max_body_bytes
         self.max_json_depth = max_json_depth
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
@@ -75,14 +78,17 @@ class RequestLimits:
                 )
                 return
         headers = _headers(scope)
+        upload = scope.get("method") == "PUT" and path.startswith(DOCUMENTS_PREFIX)
+        limit, setting = ((self.max_upload_bytes, "max_upload_bytes") if upload
+                          else (self.max_body_bytes, "max_body_bytes"))
         declared = headers.get("content-length")
-        if declared is not None and declared.isdigit() and int(declared) > self.max_body_bytes:
-            await _error(send, 413, self._too_large(f"is {int(declared)} bytes,"))
+        if declared is not None and declared.isdigit() and int(declared) > limit:
+            await _error(send, 413, _too_large(f"is {int(declared)} bytes,", limit, setting))
             return
         try:
-            body, last = await self._read_body(receive)
+            body, last = await self._read_body(receive, limit)
         except BodyTooLarge:
-            await _error(send, 413, self._too_large("is"))
+            await _error(send, 413, _too_large("is", limit, setting))
             return
         if body and _is_json(headers.get("content-type")):
             problem = json_problem(body, self.max_json_depth)
@@ -91,13 +97,7 @@ class RequestLimits:
                 return
         await self.app(scope, _replay(body, last, receive), send)
 
-    def _too_large(self, size: str) -> str:
-        return (
-            f"request body {size} over the limit of {self.max_body_bytes} bytes "
-            "(setting max_body_bytes)"
-        )
-
-    async def _read_body(self, receive: Receive) -> tuple[bytes, Message | None]:
+    async def _read_body(self, receive: Receive, limit: int) -> tuple[bytes, Message | None]:
         """The whole body, at most the limit; and a non-body message that ended it, if any."""
         parts: list[bytes] = []
         size = 0
@@ -107,11 +107,15 @@ class RequestLimits:
                 return b"".join(parts), message  # http.disconnect: let the app see it
             chunk = message.get("body", b"")
             size += len(chunk)
-            if size > self.max_body_bytes:
+            if size > limit:
                 raise BodyTooLarge
             parts.append(chunk)
             if not message.get("more_body", False):
                 return b"".join(parts), None
+
+
+def _too_large(size: str, limit: int, setting: str) -> str:
+    return f"request body {size} over the limit of {limit} bytes (setting {setting})"
 
 
 def json_problem(body: bytes, max_depth: int = DEFAULT_MAX_JSON_DEPTH) -> str | None:

@@ -6,9 +6,11 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from .filters import FilterFields
 
-class SearchRequest(BaseModel):
-    """A query for ranked passages."""
+
+class SearchRequest(FilterFields):
+    """A query for ranked passages, optionally narrowed by collection, tags, time or path."""
 
     model_config = ConfigDict(extra="forbid")
 
@@ -75,6 +77,8 @@ class DocumentResponse(BaseModel):
     content_hash: str
     indexed_at: float
     metadata: dict[str, Any]
+    groups: list[str] = Field(description="Groups that may read it; empty: everyone.")
+    tags: list[str]
     chunks: list[ChunkOut]
 
 
@@ -89,14 +93,61 @@ class HealthResponse(BaseModel):
     status: str = Field(description="'ok', or 'no-index' when no index is loaded.")
     index_loaded: bool
     generation: int | None
-    documents: int
-    chunks: int
+    documents: int = Field(description="Unrestricted documents (anyone may ask /health).")
+    chunks: int = Field(description="Chunks of the unrestricted documents.")
     model: ModelInfo
     detail: str | None = Field(None, description="Why no index is loaded, when none is.")
 
 
 class ErrorResponse(BaseModel):
     detail: str
+
+
+class CollectionOut(BaseModel):
+    name: str
+    documents: int = Field(description="Documents of this collection the caller may read.")
+
+
+class CollectionsResponse(BaseModel):
+    collections: list[CollectionOut]
+
+
+DocumentFormat = Literal["markdown", "html", "text"]
+
+
+class PushRequest(BaseModel):
+    """A document pushed as text (upload a file with multipart/form-data instead for PDFs)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    text: str = Field(..., min_length=1, description="The document's content, in `format`.")
+    format: DocumentFormat = Field("markdown", description="How to read `text`.")
+    title: str | None = Field(None, min_length=1, max_length=500,
+                              description="Title; by default from the text (front matter, H1).")
+    collection: str | None = Field(
+        None, min_length=1, max_length=200, pattern=r"^[^\x00-\x1f/]+$",
+        description="Collection; by default the push_collection setting ('pushed')."
+    )
+    groups: list[str] | None = Field(
+        None, max_length=100, description="Groups that may read it; by default from the front "
+        "matter or the access rules, else unrestricted. [] makes it unrestricted."
+    )
+    tags: list[str] | None = Field(None, max_length=100, description="Tags for filtering.")
+    source: str | None = Field(
+        None, min_length=1, max_length=2000,
+        description="Where the document lives (its wiki URL, say); shown with citations."
+    )
+    modified: float | None = Field(
+        None, ge=0, le=1e11, description="Modification time, Unix seconds; by default now."
+    )
+
+
+class PushResponse(BaseModel):
+    document_id: str
+    action: str = Field(description="added, updated, unchanged or removed.")
+    chunks: int
+    chunks_embedded: int
+    generation: int = Field(description="Generation that holds the change; served from now on.")
 
 
 class FeedbackRequest(BaseModel):
@@ -118,3 +169,64 @@ class FeedbackResponse(BaseModel):
     query_id: str
     document_id: str
     grade: int
+
+
+class ContextRequest(FilterFields):
+    """A query for grounding passages that fit a budget (``POST /context``)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    query: str = Field(..., min_length=1, description="What the passages should answer.")
+    budget: int = Field(
+        1000, ge=1,
+        description="Most tokens (or characters, with unit=chars) the whole text block may "
+        "take: passages, numbers, citations and blank lines. At most the max_context_tokens "
+        "(or max_context_chars) setting.",
+    )
+    unit: Literal["tokens", "chars"] = Field(
+        "tokens", description="tokens: word pieces of the encoder's tokenizer; chars: characters."
+    )
+    max_per_document: int = Field(
+        2, ge=1, le=20, description="Most passages from any one document (adjacent windows "
+        "joined into one passage count once)."
+    )
+    mode: Literal["dense", "lexical", "hybrid"] = Field(
+        "hybrid", description="Ranking, as for /search."
+    )
+    rerank: bool | None = Field(
+        None, description="Re-rank with the configured cross-encoder, as for /search."
+    )
+
+
+class ContextPassageOut(BaseModel):
+    """One numbered passage of the block and its citation."""
+
+    number: int = Field(description="The [n] the passage carries in text.")
+    document_id: str
+    chunk_ids: list[int] = Field(description="Chunks joined into this passage, in order.")
+    title: str
+    source: str
+    trail: list[str] = Field(description="Headings above the passage, outermost first.")
+    page: int | None = Field(None, description="1-based page, for PDFs.")
+    text: str
+    citation: str = Field(description="The citation as written in text after 'Source: '.")
+    score: float = Field(description="Best score of its chunks (as /search scores them).")
+    truncated: bool = Field(
+        False, description="Cut at a word to fit the budget (ends with ' …')."
+    )
+
+
+class ContextResponse(BaseModel):
+    query: str
+    budget: int
+    unit: str
+    used: int = Field(description="Tokens (or characters) text takes; never over budget.")
+    mode: str
+    generation: int = Field(description="Index generation that answered.")
+    took_ms: float
+    passages: list[ContextPassageOut]
+    text: str = Field(
+        description="Ready to paste into a prompt: each passage as '[n] text', then a line "
+        "'Source: title > headings, page (source)', passages separated by a blank line. "
+        "Empty when nothing fits or nothing matched."
+    )

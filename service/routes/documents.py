@@ -1,13 +1,63 @@
-"""``GET /documents/{id}``: one document's metadata and chunks."""
+"""``/documents/{id}``: read one document; push (``PUT``) or remove (``DELETE``) one.
+
+A document the caller may not read answers 404 exactly like one that does
+not exist, so its existence does not leak.
+"""
 
 from __future__ import annotations
 
-from fastapi import APIRouter, HTTPException
+import re
+import threading
+import time
+from dataclasses import replace
+from typing import Annotated, Any
 
-from ..deps import SearcherDep
-from ..schemas import ChunkOut, DocumentResponse, ErrorResponse
+from fastapi import APIRouter, Depends, HTTPException, Path, Request
+from pydantic import ValidationError
+
+from indexer.access import parse_groups, parse_tags
+from indexer.build import PushReport, delete_document, push_document
+from indexer.errors import IndexLockedError, LoadError, SettingsError
+from indexer.loaders import parse_document
+
+from ..auth import ReadCaller, WriteCaller
+from ..deps import EngineDep, SearcherDep, SettingsDep
+from ..filters import readable
+from ..schemas import ChunkOut, DocumentResponse, ErrorResponse, PushRequest, PushResponse
 
 router = APIRouter(tags=["documents"])
+
+MAX_ID_CHARS = 512
+# Path-like ids: segments of letters, digits and a few marks, joined by single slashes.
+_SEGMENT = r"[\w.~@:+=,()' -]+"
+_ID = re.compile(rf"^{_SEGMENT}(/{_SEGMENT})*$")
+_KINDS_BY_SUFFIX = {".md": "markdown", ".markdown": "markdown", ".html": "html",
+                    ".htm": "html", ".pdf": "pdf", ".txt": "text"}
+# One push at a time per process; the index lock orders it against `sounding index` runs.
+_push_lock = threading.Lock()
+
+
+def check_document_id(document_id: str) -> str:
+    """``document_id`` if it is a safe id, else 422 naming the rule it breaks."""
+    if len(document_id) > MAX_ID_CHARS:
+        raise HTTPException(422, f"document id is {len(document_id)} characters; at most "
+                            f"{MAX_ID_CHARS} are accepted")
+    if not _ID.match(document_id) or document_id != document_id.strip():
+        raise HTTPException(
+            422, f"document id {document_id!r} is not accepted: use letters, digits, spaces "
+            "and . _ ~ @ : + = , ( ) ' -, with single '/' between parts and none at either end",
+        )
+    if any(part in (".", "..") or part != part.strip() for part in document_id.split("/")):
+        raise HTTPException(422, f"document id {document_id!r} has a '.' or '..' part, or a "
+                            "part with spaces at its ends")
+    return document_id
+
+
+DocumentId = Annotated[str, Path(description="The document's id, e.g. runbooks/restart.md.")]
+
+
+def _not_found(document_id: str) -> HTTPException:
+    return HTTPException(404, f"no document with id {document_id!r} in the index")
 
 
 @router.get(
@@ -15,12 +65,13 @@ router = APIRouter(tags=["documents"])
     response_model=DocumentResponse,
     responses={404: {"model": ErrorResponse}, 503: {"model": ErrorResponse}},
 )
-def get_document(document_id: str, searcher: SearcherDep) -> DocumentResponse:
+def get_document(document_id: DocumentId, searcher: SearcherDep,
+                 caller: ReadCaller) -> DocumentResponse:
     """A document by id (its path relative to the indexed folder, or its corpus ``_id``)."""
     reader = searcher.reader
-    doc = reader.document(document_id)
+    doc = readable(caller, reader.document(document_id))
     if doc is None:
-        raise HTTPException(404, f"no document with id {document_id!r} in the index")
+        raise _not_found(document_id)
     return DocumentResponse(
         id=doc.id,
         collection=doc.collection,
@@ -31,6 +82,8 @@ def get_document(document_id: str, searcher: SearcherDep) -> DocumentResponse:
         content_hash=doc.content_hash,
         indexed_at=doc.indexed_at,
         metadata=doc.metadata,
+        groups=list(doc.groups),
+        tags=list(doc.tags),
         chunks=[
             ChunkOut(
                 chunk_id=c.id,
@@ -43,3 +96,141 @@ def get_document(document_id: str, searcher: SearcherDep) -> DocumentResponse:
             for c in reader.document_chunks(doc.id)
         ],
     )
+
+
+async def _push_body(request: Request) -> tuple[PushRequest, bytes, str]:
+    """The pushed document from JSON, or from a multipart upload (field ``file``)."""
+    content_type = request.headers.get("content-type", "")
+    if content_type.startswith("multipart/form-data"):
+        form = await request.form()
+        upload = form.get("file")
+        if upload is None or isinstance(upload, str):
+            raise HTTPException(422, "a multipart push needs the document in a field 'file'")
+        data = await upload.read()
+        name = upload.filename or "upload"
+        suffix = name[name.rfind("."):].lower() if "." in name else ""
+        kind = _KINDS_BY_SUFFIX.get(suffix)
+        if kind is None:
+            raise HTTPException(422, f"uploaded file {name!r} is not .md, .html, .pdf or .txt")
+        fields: dict[str, Any] = {"text": "-", "format": "text"}
+        for key in ("title", "collection", "source", "modified"):
+            if form.get(key):
+                fields[key] = form.get(key)
+        for key in ("groups", "tags"):
+            if key in form:
+                raw = str(form.get(key) or "")
+                fields[key] = [v.strip() for v in raw.split(",") if v.strip()]
+        try:
+            meta = PushRequest(**fields)
+        except ValidationError as exc:
+            reasons = "; ".join(f"{'.'.join(map(str, e['loc']))}: {e['msg']}"
+                                for e in exc.errors())
+            raise HTTPException(422, f"invalid request: {reasons}") from None
+        return meta, data, kind
+    if not content_type.startswith("application/json"):
+        raise HTTPException(415, "send the document as application/json "
+                            "({\"text\": ..., \"format\": \"markdown\"}) or as "
+                            "multipart/form-data with a field 'file'")
+    try:
+        meta = PushRequest.model_validate_json(await request.body())
+    except ValidationError as exc:
+        reasons = "; ".join(f"{'.'.join(map(str, e['loc'])) or 'body'}: {e['msg']}"
+                            for e in exc.errors())
+        raise HTTPException(422, f"invalid request: {reasons}") from None
+    return meta, meta.text.encode("utf-8"), meta.format
+
+
+def _locked(exc: IndexLockedError) -> HTTPException:
+    return HTTPException(503, f"{exc}", headers={"Retry-After": "30"})
+
+
+@router.put(
+    "/documents/{document_id:path}",
+    response_model=PushResponse,
+    responses={404: {"model": ErrorResponse}, 409: {"model": ErrorResponse},
+               413: {"model": ErrorResponse}, 415: {"model": ErrorResponse},
+               422: {"model": ErrorResponse}, 503: {"model": ErrorResponse}},
+    openapi_extra={"requestBody": {"required": True, "content": {
+        "application/json": {"schema": PushRequest.model_json_schema()},
+        "multipart/form-data": {"schema": {"type": "object", "required": ["file"], "properties": {
+            "file": {"type": "string", "format": "binary"},
+            "collection": {"type": "string"}, "groups": {"type": "string"},
+            "tags": {"type": "string"}, "title": {"type": "string"},
+            "source": {"type": "string"}}}},
+    }}},
+)
+def put_document(
+    document_id: DocumentId,
+    caller: WriteCaller,
+    settings: SettingsDep,
+    engine: EngineDep,
+    pushed: Annotated[tuple[PushRequest, bytes, str], Depends(_push_body)],
+) -> PushResponse:
+    """Add or replace a document; searchable when this returns (needs scope write).
+
+    JSON (`text` with a `format`) or a multipart upload (`file`, for PDFs too).
+    """
+    check_document_id(document_id)
+    meta, data, kind = pushed
+    collection = meta.collection or settings.push_collection
+    current = engine.current()
+    if current is not None:
+        existing = current.reader.document(document_id)
+        if existing is not None and readable(caller, existing) is None:
+            raise _not_found(document_id)  # not yours to see, so not yours to replace
+    try:
+        doc = parse_document(
+            data, kind, doc_id=document_id, name=meta.title or document_id.rsplit("/", 1)[-1],
+            source=meta.source or f"pushed:{document_id}",
+            modified=meta.modified if meta.modified is not None else time.time(),
+        )
+    except LoadError as exc:
+        raise HTTPException(422, f"cannot index document {document_id!r}: {exc}") from None
+    if meta.title:
+        doc = replace(doc, title=meta.title)
+    try:
+        groups = None if meta.groups is None else parse_groups(meta.groups, "groups")
+        tags = None if meta.tags is None else parse_tags(meta.tags)
+    except ValueError as exc:
+        raise HTTPException(422, str(exc)) from None
+    with _push_lock:
+        try:
+            report: PushReport = push_document(
+                settings, engine.embedder, doc, collection, groups=groups, tags=tags,
+                wait_seconds=settings.push_wait_seconds,
+            )
+        except IndexLockedError as exc:
+            raise _locked(exc) from None
+        except SettingsError as exc:
+            raise HTTPException(409, str(exc)) from None
+        except LoadError as exc:
+            raise HTTPException(422, f"cannot index document {document_id!r}: {exc}") from None
+        engine.reload()
+    return PushResponse(document_id=document_id, action=report.action, chunks=report.chunks,
+                        chunks_embedded=report.chunks_embedded, generation=report.generation)
+
+
+@router.delete(
+    "/documents/{document_id:path}",
+    response_model=PushResponse,
+    responses={404: {"model": ErrorResponse}, 503: {"model": ErrorResponse}},
+)
+def remove_document(
+    document_id: DocumentId, caller: WriteCaller, settings: SettingsDep, engine: EngineDep,
+    searcher: SearcherDep,
+) -> PushResponse:
+    """Remove a document from the index (needs scope write); 404 when there is none."""
+    check_document_id(document_id)
+    if readable(caller, searcher.reader.document(document_id)) is None:
+        raise _not_found(document_id)
+    with _push_lock:
+        try:
+            report = delete_document(settings, engine.embedder, document_id,
+                                     wait_seconds=settings.push_wait_seconds)
+        except IndexLockedError as exc:
+            raise _locked(exc) from None
+        engine.reload()
+    if report is None:
+        raise _not_found(document_id)
+    return PushResponse(document_id=document_id, action=report.action, chunks=0,
+                        chunks_embedded=0, generation=report.generation)

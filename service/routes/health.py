@@ -5,6 +5,7 @@ from __future__ import annotations
 from fastapi import APIRouter
 
 from indexer.embedding import describe
+from indexer.search import SearchFilter
 
 from ..deps import EngineDep
 from ..schemas import HealthResponse, ModelInfo
@@ -14,7 +15,11 @@ router = APIRouter(tags=["health"])
 
 @router.get("/health", response_model=HealthResponse)
 def health(engine: EngineDep) -> HealthResponse:
-    """Whether an index is loaded, its size and the encoder in use."""
+    """Whether an index is loaded, its size and the encoder in use. Needs no key.
+
+    The counts are of unrestricted documents only, since anyone may ask;
+    ``GET /metrics`` (with a key) gives the totals.
+    """
     searcher = engine.current()
     model = ModelInfo(**describe(engine.embedder))  # type: ignore[arg-type]
     if searcher is None:
@@ -22,7 +27,7 @@ def health(engine: EngineDep) -> HealthResponse:
             status="no-index", index_loaded=False, generation=None, documents=0, chunks=0,
             model=model, detail=engine.error,
         )
-    docs, chunks = searcher.reader.counts()
+    docs, chunks = searcher.reader.visible_counts(SearchFilter(groups=frozenset()))
     return HealthResponse(
         status="ok", index_loaded=True, generation=searcher.reader.generation,
         documents=docs, chunks=chunks, model=model,

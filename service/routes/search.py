@@ -4,11 +4,14 @@ from __future__ import annotations
 
 import time
 
-from fastapi import APIRouter, HTTPException
+from fastapi import APIRouter, HTTPException, Request
 
 from indexer.errors import QueryError
 
+from ..auth import ReadCaller
 from ..deps import SearcherDep, SettingsDep
+from ..filters import search_filter
+from ..metrics import record_mode
 from ..schemas import ErrorResponse, Passage, SearchRequest, SearchResponse
 
 router = APIRouter(tags=["search"])
@@ -21,10 +24,13 @@ router = APIRouter(tags=["search"])
 )
 def search(
     body: SearchRequest,
+    request: Request,
     searcher: SearcherDep,
     settings: SettingsDep,
+    caller: ReadCaller,
 ) -> SearchResponse:
     """Rank passages by meaning; the best first."""
+    record_mode(request, body.mode)
     started = time.perf_counter()
     if len(body.query) > settings.max_query_chars:
         raise HTTPException(
@@ -39,7 +45,7 @@ def search(
     try:
         hits = searcher.search(
             body.query, body.k, mode=body.mode, max_per_document=body.max_per_document,
-            rerank=body.rerank,
+            rerank=body.rerank, where=search_filter(caller, body),
         )
     except QueryError as exc:
         raise HTTPException(422, str(exc)) from exc

@@ -130,7 +130,8 @@ def main() -> None:
         server = subprocess.Popen(
             [sys.executable, "-m", "service.cli", "serve", "--index", str(index_dir),
              "--port", str(port)],
-            env=env | {"SOUNDING_LOG_LEVEL": "warning", "SOUNDING_MAX_K": "100"},
+            env=env | {"SOUNDING_LOG_LEVEL": "warning", "SOUNDING_MAX_K": "100",
+                       "SOUNDING_REQUIRE_KEYS": "false"},
             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
         )
         base = f"http://127.0.0.1:{port}"

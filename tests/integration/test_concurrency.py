@@ -39,7 +39,9 @@ def write_generation(root: Path, generation: int, ids: range) -> None:
 def test_queries_answer_from_one_complete_generation_during_reindexes(tmp_path: Path) -> None:
     root = tmp_path / "wiki"
     root.mkdir()
-    settings = ServiceSettings(index_dir=tmp_path / "idx", reload_check_seconds=0)
+    settings = ServiceSettings(
+        require_keys=False, index_dir=tmp_path / "idx", reload_check_seconds=0,
+    )
     embedder = HashingEmbedder(32, seed=3)
     plan = {1: range(0, 200), 2: range(0, 250), 3: range(100, 250)}  # docs per generation
     write_generation(root, 1, plan[1])

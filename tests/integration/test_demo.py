@@ -43,7 +43,9 @@ class CountingEmbedder:
 
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory: pytest.TempPathFactory, real_embedder):
-    settings = ServiceSettings(index_dir=tmp_path_factory.mktemp("demo") / "index")
+    settings = ServiceSettings(
+        require_keys=False, index_dir=tmp_path_factory.mktemp("demo") / "index",
+    )
     report = refresh_index([DEMO_CORPUS], settings, real_embedder)
     return settings, report
 

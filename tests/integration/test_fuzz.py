@@ -49,7 +49,7 @@ def build_wiki(
         path = root / rel
         path.parent.mkdir(parents=True, exist_ok=True)
         path.write_text(text)
-    settings = ServiceSettings(
+    settings = ServiceSettings(require_keys=False,
         index_dir=tmp / "index", reload_check_seconds=0, max_k=20, max_query_chars=200,
         max_body_bytes=max_body_bytes,
     )
@@ -79,6 +79,7 @@ OPERATIONS = [
     ("/feedback", "POST"),
     ("/documents/{document_id}", "GET"),
     ("/health", "GET"),
+    ("/metrics", "GET"),
 ]
 CHECKS = [
     schemathesis.checks.not_a_server_error,

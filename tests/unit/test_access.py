@@ -14,7 +14,7 @@ from indexer.embedding import HashingEmbedder
 from indexer.errors import IndexLockedError, LoadError, SettingsError
 from indexer.loaders import parse_document
 from indexer.lock import IndexLock
-from indexer.search import MODES, SearchFilter, Searcher
+from indexer.search import MODES, Searcher, SearchFilter
 from indexer.settings import IndexSettings
 from indexer.store import IndexReader
 

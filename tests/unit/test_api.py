@@ -39,7 +39,7 @@ def write_pages(root: Path, pages: dict[str, str]) -> None:
 def wiki(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, ServiceSettings, HashingEmbedder]:
     root = tmp_path_factory.mktemp("wiki")
     write_pages(root, PAGES)
-    settings = ServiceSettings(
+    settings = ServiceSettings(require_keys=False,
         index_dir=root.parent / f"{root.name}-index", max_k=20, max_query_chars=200,
         reload_check_seconds=0,
     )
@@ -136,7 +136,7 @@ def test_openapi_schema_lists_every_endpoint(base: str) -> None:
 
 
 def test_service_without_an_index_says_why(tmp_path: Path) -> None:
-    settings = ServiceSettings(index_dir=tmp_path / "none")
+    settings = ServiceSettings(require_keys=False, index_dir=tmp_path / "none")
     with running(create_app(settings, embedder=HashingEmbedder(32))) as url:
         h = httpx.get(f"{url}/health").json()
         assert h["status"] == "no-index" and "sounding index" in h["detail"]
@@ -147,7 +147,9 @@ def test_service_without_an_index_says_why(tmp_path: Path) -> None:
 def test_running_service_switches_to_a_new_generation(tmp_path: Path) -> None:
     root = tmp_path / "wiki"
     write_pages(root, PAGES)
-    settings = ServiceSettings(index_dir=tmp_path / "idx", reload_check_seconds=0)
+    settings = ServiceSettings(
+        require_keys=False, index_dir=tmp_path / "idx", reload_check_seconds=0,
+    )
     embedder = HashingEmbedder(32, seed=1)
     refresh_index([root], settings, embedder)
     with running(create_app(settings, embedder=embedder)) as url:

@@ -60,7 +60,7 @@ def served(tmp_path: Path):
     root.mkdir()
     (root / "rota.md").write_text("# Standby rota\n\nThe standby engineer carries the pager.\n")
     (root / "canteen.md").write_text("# Canteen\n\nLunch from noon.\n")
-    settings = ServiceSettings(index_dir=tmp_path / "idx")
+    settings = ServiceSettings(require_keys=False, index_dir=tmp_path / "idx")
     refresh_index([root], settings, HashingEmbedder(16))
     with running(create_app(settings, embedder=HashingEmbedder(16))) as url:
         yield url, settings

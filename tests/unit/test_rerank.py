@@ -45,7 +45,9 @@ def index(tmp_path_factory: pytest.TempPathFactory) -> ServiceSettings:
     root = tmp_path_factory.mktemp("docs")
     for i in range(12):
         (root / f"p{i}.md").write_text(f"# Pump {i}\n\nPump number {i} sits in hall {i % 3}.\n")
-    settings = ServiceSettings(index_dir=root.parent / "rerank-idx", rerank_depth=8)
+    settings = ServiceSettings(
+        require_keys=False, index_dir=root.parent / "rerank-idx", rerank_depth=8,
+    )
     refresh_index([root], settings, HashingEmbedder(16))
     return settings
 
