@@ -2,6 +2,15 @@
 # Install everything and run the whole test suite (this is what CI runs).
 set -euo pipefail
 cd "$(dirname "$0")/.."
+# The search page test drives Debian's Chromium (never a downloaded browser).
+if [ ! -x /usr/bin/chromium ] || [ ! -x /usr/bin/chromedriver ]; then
+    echo "test: installing chromium and chromium-driver with apt-get"
+    sudo=""
+    [ "$(id -u)" -eq 0 ] || sudo="sudo"
+    $sudo env DEBIAN_FRONTEND=noninteractive apt-get update -qq
+    $sudo env DEBIAN_FRONTEND=noninteractive apt-get install -y -qq \
+        chromium chromium-driver >/dev/null
+fi
 bash scripts/setup.sh
 .venv/bin/ruff check indexer service tests
 .venv/bin/python -m pytest -ra "$@"

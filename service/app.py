@@ -19,7 +19,7 @@ from indexer.judgments import JudgmentStore
 from .auth import open_keys
 from .engine import Engine
 from .limits import RequestLimits
-from .routes import documents, feedback, health, search
+from .routes import documents, feedback, health, page, search
 from .settings import ServiceSettings
 
 log = logging.getLogger("sounding.service")
@@ -64,8 +64,9 @@ def create_app(
         max_body_bytes=settings.max_body_bytes,
         max_json_depth=settings.max_json_depth,
     )
-    for module in (search, documents, feedback, health):
+    for module in (search, documents, feedback, health, page):
         app.include_router(module.router)
+    app.mount("/static", page.static_files(), name="static")
 
     @app.exception_handler(RequestValidationError)
     async def invalid_request(request: Request, exc: RequestValidationError) -> JSONResponse:
