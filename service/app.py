@@ -19,7 +19,9 @@ from indexer.judgments import JudgmentStore
 from .auth import open_keys
 from .engine import Engine
 from .limits import RequestLimits
+from .metrics import RequestObserver, ServiceMetrics
 from .routes import documents, feedback, health, page, search
+from .routes import metrics as metrics_route
 from .settings import ServiceSettings
 
 log = logging.getLogger("sounding.service")
@@ -64,8 +66,13 @@ def create_app(
         max_body_bytes=settings.max_body_bytes,
         max_json_depth=settings.max_json_depth,
     )
+    # Added last, so outermost: request id, counts and access line for every answer,
+    # RequestLimits' refusals included.
+    app.state.metrics = ServiceMetrics(settings.index_dir)
+    app.add_middleware(RequestObserver, metrics=app.state.metrics)
     for module in (search, documents, feedback, health, page):
         app.include_router(module.router)
+    app.include_router(metrics_route.router)  # no key yet: auth dependency goes here
     app.mount("/static", page.static_files(), name="static")
 
     @app.exception_handler(RequestValidationError)

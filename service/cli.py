@@ -201,6 +201,7 @@ def cmd_serve(args: argparse.Namespace) -> int:
     import uvicorn
 
     from .app import create_app
+    from .logs import log_config
 
     settings = _settings(args)
     settings.check_access()  # exit 2 before anything starts when keys are off beyond loopback
@@ -211,8 +212,11 @@ def cmd_serve(args: argparse.Namespace) -> int:
             f"port {settings.port} as your organisation's policies require.",
             file=sys.stderr,
         )
+    # uvicorn's access log is off: the app writes its own access lines (route templates,
+    # request ids; no paths or query strings), in the format of every other line.
     uvicorn.run(
-        create_app(settings), host=settings.host, port=settings.port, log_level=settings.log_level
+        create_app(settings), host=settings.host, port=settings.port, log_level=settings.log_level,
+        log_config=log_config(settings.log_level, settings.log_format), access_log=False,
     )
     return 0
 

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import ipaddress
 from pathlib import Path
+from typing import Literal
 
 from pydantic import Field
 
@@ -34,6 +35,9 @@ class ServiceSettings(IndexSettings):
     )
     rerank_depth: int = Field(50, ge=1, le=1000, description="Candidates the reranker sees.")
     log_level: str = Field("info", description="uvicorn log level.")
+    log_format: Literal["json", "text"] = Field(
+        "json", description="Log lines of `sounding serve`: one JSON object each, or plain text."
+    )
     max_body_bytes: int = Field(
         64 * 1024, ge=1, description="Largest request body accepted, in bytes; larger is a 413."
     )

@@ -1,0 +1,224 @@
+"""``GET /metrics`` over a real uvicorn server, parsed with prometheus_client's own parser."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from pathlib import Path
+
+import httpx
+import pytest
+from prometheus_client.parser import text_string_to_metric_families
+
+from indexer.build import refresh_index
+from indexer.embedding import HashingEmbedder
+from indexer.errors import IndexMismatchError
+from indexer.store import read_last_run
+from service.app import create_app
+from service.limits import DEFAULT_MAX_JSON_DEPTH
+from service.metrics import BUCKETS, ServiceMetrics
+from service.settings import ServiceSettings
+from tests.serving import running
+
+PAGES = {
+    "runbooks/valve.md": "# Valve\n\n## Isolation\n\nClose the upstream gate first.\n",
+    "notes/kiosk.md": "# Kiosk\n\nThe kiosk printer jams when the tray is overfilled.\n",
+}
+Samples = dict[tuple[str, frozenset], float]
+
+
+def settings_for(index_dir: Path, **extra) -> ServiceSettings:
+    # Keys are not what these tests are about; the setting exists once auth lands.
+    if "require_keys" in ServiceSettings.model_fields:
+        extra.setdefault("require_keys", False)
+    return ServiceSettings(index_dir=index_dir, reload_check_seconds=0, **extra)
+
+
+def build(tmp: Path, embedder: HashingEmbedder) -> tuple[Path, ServiceSettings]:
+    root = tmp / "wiki"
+    for rel, text in PAGES.items():
+        (root / rel).parent.mkdir(parents=True, exist_ok=True)
+        (root / rel).write_text(text)
+    settings = settings_for(tmp / "index", max_body_bytes=4096)
+    refresh_index([root], settings, embedder)
+    return root, settings
+
+
+def scrape(base: str) -> tuple[Samples, str]:
+    r = httpx.get(f"{base}/metrics")
+    assert r.status_code == 200
+    # The classic text format, version 0.0.4 (Prometheus "Exposition formats" docs).
+    assert r.headers["content-type"].startswith("text/plain; version=0.0.4")
+    samples: Samples = {}
+    for family in text_string_to_metric_families(r.text):
+        for s in family.samples:
+            samples[(s.name, frozenset(s.labels.items()))] = s.value
+    return samples, r.text
+
+
+def value(samples: Samples, name: str, **labels: str) -> float:
+    return samples.get((name, frozenset(labels.items())), 0.0)
+
+
+REQUESTS = "sounding_http_requests_total"
+LATENCY = "sounding_http_request_duration_seconds"
+
+
+@pytest.fixture(scope="module")
+def base(tmp_path_factory: pytest.TempPathFactory) -> Iterator[str]:
+    embedder = HashingEmbedder(16)
+    _, settings = build(tmp_path_factory.mktemp("metrics"), embedder)
+    with running(create_app(settings, embedder=embedder)) as url:
+        yield url
+
+
+def test_search_counts_and_latency_move_per_mode(base: str) -> None:
+    before, _ = scrape(base)
+    for mode in ("lexical", "lexical", "hybrid"):
+        r = httpx.post(f"{base}/search", json={"query": "upstream gate", "mode": mode})
+        assert r.status_code == 200
+    after, _ = scrape(base)
+    ok = {"route": "/search", "method": "POST", "status": "200"}
+    assert value(after, REQUESTS, mode="lexical", **ok) - value(
+        before, REQUESTS, mode="lexical", **ok) == 2
+    assert value(after, REQUESTS, mode="hybrid", **ok) - value(
+        before, REQUESTS, mode="hybrid", **ok) == 1
+    assert value(after, REQUESTS, mode="dense", **ok) == value(before, REQUESTS, mode="dense", **ok)
+    timed = {"route": "/search", "method": "POST", "mode": "lexical"}
+    count = value(after, f"{LATENCY}_count", **timed)
+    assert count - value(before, f"{LATENCY}_count", **timed) == 2
+    assert value(after, f"{LATENCY}_sum", **timed) > 0
+
+
+def test_histogram_buckets_are_cumulative_up_to_the_count(base: str) -> None:
+    httpx.get(f"{base}/health")
+    samples, _ = scrape(base)
+    labels = {"route": "/health", "method": "GET", "mode": "none"}
+    bounds = [*(str(b) for b in BUCKETS), "+Inf"]
+    counts = [value(samples, f"{LATENCY}_bucket", le=le, **labels) for le in bounds]
+    assert counts == sorted(counts)  # a histogram's buckets count "at most le" (cumulative)
+    assert counts[-1] == value(samples, f"{LATENCY}_count", **labels) >= 1
+
+
+def test_a_request_refused_by_validation_is_counted_without_a_mode(base: str) -> None:
+    before, _ = scrape(base)
+    assert httpx.post(f"{base}/search", json={"query": ""}).status_code == 422
+    after, _ = scrape(base)
+    bad = {"route": "/search", "method": "POST", "mode": "none", "status": "422"}
+    assert value(after, REQUESTS, **bad) - value(before, REQUESTS, **bad) == 1
+
+
+def test_labels_are_route_templates_never_ids_or_paths(base: str) -> None:
+    assert httpx.get(f"{base}/documents/some-secret-id").status_code == 404
+    assert httpx.get(f"{base}/documents/runbooks/valve.md").status_code == 200
+    assert httpx.get(f"{base}/no/such/secret-place").status_code == 404
+    samples, text = scrape(base)
+    for leaked in ("some-secret-id", "runbooks", "valve.md", "secret-place"):
+        assert leaked not in text
+    doc = {"route": "/documents/{document_id}", "method": "GET", "mode": "none"}
+    assert value(samples, REQUESTS, status="404", **doc) >= 1
+    assert value(samples, REQUESTS, status="200", **doc) >= 1
+    assert value(samples, REQUESTS, route="unmatched", method="GET", mode="none",
+                 status="404") >= 1
+
+
+def test_an_unusual_method_does_not_make_a_new_label(base: str) -> None:
+    assert httpx.request("BREW", f"{base}/health").status_code == 405
+    samples, text = scrape(base)
+    assert "BREW" not in text
+    assert value(samples, REQUESTS, route="/health", method="other", mode="none",
+                 status="405") >= 1
+
+
+def test_refusals_before_any_route_are_counted(base: str) -> None:
+    """RequestLimits answers 413 and 422 itself; they are still counted, under the route."""
+    before, _ = scrape(base)
+    big = httpx.post(f"{base}/search", content=b"x" * 5000,
+                     headers={"content-type": "application/json"})
+    deep = "[" * (DEFAULT_MAX_JSON_DEPTH + 1) + "]" * (DEFAULT_MAX_JSON_DEPTH + 1)
+    nested = httpx.post(f"{base}/search", content=deep,
+                        headers={"content-type": "application/json"})
+    assert (big.status_code, nested.status_code) == (413, 422)
+    after, _ = scrape(base)
+    for status in ("413", "422"):
+        labels = {"route": "/search", "method": "POST", "mode": "none", "status": status}
+        assert value(after, REQUESTS, **labels) - value(before, REQUESTS, **labels) == 1
+
+
+def test_index_gauges_match_health(base: str) -> None:
+    health = httpx.get(f"{base}/health").json()
+    samples, _ = scrape(base)
+    assert value(samples, "sounding_index_loaded") == 1
+    assert value(samples, "sounding_index_documents") == health["documents"] == 2
+    assert value(samples, "sounding_index_chunks") == health["chunks"]
+    assert value(samples, "sounding_index_generation") == health["generation"]
+    assert value(samples, "sounding_index_updated_timestamp_seconds") > 0
+    assert value(samples, "sounding_build_info", version=httpx.get(
+        f"{base}/openapi.json").json()["info"]["version"]) == 1
+
+
+def test_last_run_gauges_follow_an_ok_then_a_failed_run(tmp_path: Path) -> None:
+    embedder = HashingEmbedder(16)
+    root, settings = build(tmp_path, embedder)
+    with running(create_app(settings, embedder=embedder)) as url:
+        first = read_last_run(settings.index_dir)
+        assert first is not None and first["result"] == "ok"
+        samples, _ = scrape(url)
+        assert value(samples, "sounding_last_index_run_success") == 1
+        assert value(samples, "sounding_last_index_run_timestamp_seconds") == pytest.approx(
+            first["finished_at"])
+        assert value(samples, "sounding_last_index_run_duration_seconds") == first["seconds"]
+
+        # Another encoder than the one that built the index: the run fails and says so.
+        with pytest.raises(IndexMismatchError):
+            refresh_index([root], settings, HashingEmbedder(32))
+        failed = read_last_run(settings.index_dir)
+        assert failed is not None and failed["result"] == "failed"
+        samples, text = scrape(url)
+        assert value(samples, "sounding_last_index_run_success") == 0
+        assert value(samples, "sounding_last_index_run_timestamp_seconds") == pytest.approx(
+            failed["finished_at"])
+        assert ("sounding_last_index_run_duration_seconds", frozenset()) not in samples
+        assert str(settings.index_dir) not in text  # the run's detail names paths: not exposed
+        assert value(samples, "sounding_index_loaded") == 1  # the last generation is served
+
+
+def test_without_an_index_the_gauges_say_so(tmp_path: Path) -> None:
+    settings = settings_for(tmp_path / "none")
+    with running(create_app(settings, embedder=HashingEmbedder(16))) as url:
+        samples, _ = scrape(url)
+    assert value(samples, "sounding_index_loaded") == 0
+    assert not any(name.startswith(("sounding_index_documents", "sounding_last_index_run"))
+                   for name, _ in samples)
+
+
+def test_each_app_counts_on_its_own(tmp_path: Path) -> None:
+    """Two apps in one process: a per-app registry, not prometheus_client's global one."""
+    one, two = ServiceMetrics(tmp_path), ServiceMetrics(tmp_path)
+    one.observe("/health", "GET", "none", 200, 0.01)
+    assert b'route="/health"' in one.render(None)
+    assert b'route="/health"' not in two.render(None)
+
+
+@pytest.mark.parametrize(
+    ("method", "mode", "status", "labels"),
+    [
+        ("GET", "dense", 200, ("GET", "dense", "200")),
+        ("BREW", "none", 200, ("other", "none", "200")),
+        ("POST", "lexical", 999, ("POST", "lexical", "other")),
+        ("POST", "'; drop table", 200, ("POST", "none", "200")),
+    ],
+)
+def test_label_values_come_from_fixed_sets(
+    tmp_path: Path, method: str, mode: str, status: int, labels: tuple[str, str, str]
+) -> None:
+    metrics = ServiceMetrics(tmp_path)
+    metrics.observe("/search", method, mode, status, 0.02)
+    families = {f.name: f for f in text_string_to_metric_families(metrics.render(None).decode())}
+    (sample,) = [s for s in families["sounding_http_requests"].samples
+                 if s.name.endswith("_total")]
+    assert (sample.labels["method"], sample.labels["mode"], sample.labels["status"]) == labels
+
+
+def test_metrics_is_listed_in_the_openapi_schema(base: str) -> None:
+    paths = httpx.get(f"{base}/openapi.json").json()["paths"]
+    assert "/metrics" in paths and "get" in paths["/metrics"]
