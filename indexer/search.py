@@ -7,7 +7,9 @@ reciprocal rank, the default).
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+import time
+from collections.abc import Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass
 from functools import cached_property
 from typing import Literal
@@ -21,7 +23,7 @@ from .rerank import rerank as _rerank
 from .selection import SearchFilter
 from .store import IndexReader, check_model
 
-__all__ = ["MODES", "Hit", "Mode", "SearchFilter", "Searcher", "check_mode"]
+__all__ = ["MODES", "Hit", "Mode", "SearchFilter", "Searcher", "Timings", "check_mode"]
 
 Mode = Literal["dense", "lexical", "hybrid"]
 MODES: tuple[Mode, ...] = ("dense", "lexical", "hybrid")
@@ -47,6 +49,28 @@ class Hit:
     ordinal: int = 0  # position in its document; consecutive ordinals are adjacent windows
     tokens: int = 0  # word pieces of the chunk
     kind: str = ""  # markdown, html, pdf, text or corpus
+
+
+class Timings:
+    """Milliseconds spent per stage of one search (encode, dense, lexical, fusion, fetch).
+
+    Pass one to :meth:`Searcher.search` to see where a query's time goes;
+    the service logs it at debug level and sends it as a Server-Timing header.
+    """
+
+    def __init__(self) -> None:
+        self.ms: dict[str, float] = {}
+
+    @contextmanager
+    def stage(self, name: str) -> Iterator[None]:
+        started = time.perf_counter()
+        try:
+            yield
+        finally:
+            self.ms[name] = self.ms.get(name, 0.0) + (time.perf_counter() - started) * 1000
+
+
+_UNTIMED = Timings()  # stages of calls nobody asked to time land here and are ignored
 
 
 def check_mode(mode: str) -> Mode:
@@ -83,30 +107,35 @@ class Searcher:
     # -- chunk rankings -------------------------------------------------------
 
     def _dense(
-        self, queries: Sequence[str], depth: int, where: SearchFilter | None = None
+        self, queries: Sequence[str], depth: int, where: SearchFilter | None = None,
+        timings: Timings = _UNTIMED,
     ) -> list[list[tuple[int, float]]]:
         allowed = self.reader.allowed_chunks(where)
         if allowed is not None and not len(allowed):
             return [[] for _ in queries]
-        D, I = self.reader.search(
-            self.embedder.encode(list(queries)), depth, selector=self.reader.selector(where)
-        )
+        with timings.stage("encode"):
+            vectors = self.embedder.encode(list(queries))
+        with timings.stage("dense"):
+            D, I = self.reader.search(vectors, depth, selector=self.reader.selector(where))
         return [
             [(int(i), float(s)) for s, i in zip(d, ids, strict=True) if i >= 0]
             for d, ids in zip(D, I, strict=True)
         ]
 
     def _lexical(
-        self, query: str, depth: int, where: SearchFilter | None = None
+        self, query: str, depth: int, where: SearchFilter | None = None,
+        timings: Timings = _UNTIMED,
     ) -> list[tuple[int, float]]:
         match = fts5_query(query)
         if match is None:
             return []
-        scores, ids = self.reader.lexical(match, depth, where)
+        with timings.stage("lexical"):
+            scores, ids = self.reader.lexical(match, depth, where)
         return list(zip(ids.tolist(), scores.tolist(), strict=True))
 
     def ranked_chunks(
-        self, query: str, depth: int, mode: Mode, where: SearchFilter | None = None
+        self, query: str, depth: int, mode: Mode, where: SearchFilter | None = None,
+        timings: Timings = _UNTIMED,
     ) -> list[tuple[int, float]]:
         """(chunk id, score) pairs, best first, at most ``depth`` of them.
 
@@ -114,14 +143,15 @@ class Searcher:
         before the cut at ``depth``, so a filtered search still fills it.
         """
         if mode == "dense":
-            return self._dense([query], depth, where)[0]
+            return self._dense([query], depth, where, timings)[0]
         if mode == "lexical":
-            return self._lexical(query, depth, where)
+            return self._lexical(query, depth, where, timings)
         pool = max(depth, _FUSION_DEPTH)
-        dense = [c for c, _ in self._dense([query], pool, where)[0]]
-        lexical = [c for c, _ in self._lexical(query, pool, where)]
-        tier = fusion_depth(int(self.reader.vectors.ntotal))
-        return tiered_fusion([dense, lexical], tier, k=self.rrf_k)[:depth]
+        dense = [c for c, _ in self._dense([query], pool, where, timings)[0]]
+        lexical = [c for c, _ in self._lexical(query, pool, where, timings)]
+        with timings.stage("fusion"):
+            tier = fusion_depth(int(self.reader.vectors.ntotal))
+            return tiered_fusion([dense, lexical], tier, k=self.rrf_k)[:depth]
 
     # -- passages -------------------------------------------------------------
 
@@ -134,6 +164,7 @@ class Searcher:
         max_per_document: int | None = None,
         rerank: bool | None = None,
         where: SearchFilter | None = None,
+        timings: Timings | None = None,
     ) -> list[Hit]:
         """The ``k`` passages that best match ``query``, best first.
 
@@ -158,12 +189,16 @@ class Searcher:
         use_reranker = self.reranker is not None and rerank is not False
         if use_reranker:
             depth = max(depth, self.rerank_depth)
-        ranked = self.ranked_chunks(query, depth, mode, where)
-        chunks = self.reader.chunks([c for c, _ in ranked])
+        timings = timings or _UNTIMED
+        ranked = self.ranked_chunks(query, depth, mode, where, timings)
+        with timings.stage("fetch"):
+            chunks = self.reader.chunks([c for c, _ in ranked])
         if use_reranker:
             pool = [(c, chunks[c].text) for c, _ in ranked[: self.rerank_depth] if c in chunks]
-            ranked = _rerank(query, pool, self.reranker) + ranked[self.rerank_depth :]
-        docs = self.reader.documents(c.document_id for c in chunks.values())
+            with timings.stage("rerank"):
+                ranked = _rerank(query, pool, self.reranker) + ranked[self.rerank_depth :]
+        with timings.stage("fetch"):
+            docs = self.reader.documents(c.document_id for c in chunks.values())
         hits: list[Hit] = []
         per_doc: dict[str, int] = {}
         for cid, score in ranked:

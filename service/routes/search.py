@@ -2,17 +2,32 @@
 
 from __future__ import annotations
 
+import logging
 import time
 
-from fastapi import APIRouter, HTTPException, Request
+from fastapi import APIRouter, HTTPException, Request, Response
 
 from indexer.errors import QueryError
+from indexer.search import Timings
 
 from ..auth import ReadCaller
 from ..deps import SearcherDep, SettingsDep
 from ..filters import search_filter
 from ..metrics import record_mode
 from ..schemas import ErrorResponse, Passage, SearchRequest, SearchResponse
+
+log = logging.getLogger("sounding.service")
+
+
+def timed_json(payload: str, timings: Timings) -> Response:
+    """A JSON response carrying where the time went, in a Server-Timing header.
+
+    Server-Timing (W3C Server Timing) lets a benchmark or a browser's
+    developer tools read the breakdown; the same goes to the debug log.
+    """
+    header = ", ".join(f"{name};dur={ms:.3f}" for name, ms in timings.ms.items())
+    log.debug("search stages (ms): %s", header)
+    return Response(payload, media_type="application/json", headers={"Server-Timing": header})
 
 router = APIRouter(tags=["search"])
 
@@ -28,8 +43,12 @@ def search(
     searcher: SearcherDep,
     settings: SettingsDep,
     caller: ReadCaller,
-) -> SearchResponse:
-    """Rank passages by meaning; the best first."""
+) -> Response:
+    """Rank passages by meaning; the best first.
+
+    The ``Server-Timing`` header gives the milliseconds of each stage
+    (encode, dense, lexical, fusion, fetch, serialise).
+    """
     record_mode(request, body.mode)
     started = time.perf_counter()
     if len(body.query) > settings.max_query_chars:
@@ -42,14 +61,16 @@ def search(
         raise HTTPException(
             422, f"k={body.k} is over the limit of {settings.max_k} (setting max_k)"
         )
+    timings = Timings()
     try:
         hits = searcher.search(
             body.query, body.k, mode=body.mode, max_per_document=body.max_per_document,
-            rerank=body.rerank, where=search_filter(caller, body),
+            rerank=body.rerank, where=search_filter(caller, body), timings=timings,
         )
     except QueryError as exc:
         raise HTTPException(422, str(exc)) from exc
-    return SearchResponse(
+    with timings.stage("serialise"):
+        payload = SearchResponse(
         query=body.query,
         k=body.k,
         mode=body.mode,
@@ -70,4 +91,5 @@ def search(
             )
             for h in hits
         ],
-    )
+        ).model_dump_json()
+    return timed_json(payload, timings)

@@ -49,9 +49,9 @@ def build_wiki(
         path = root / rel
         path.parent.mkdir(parents=True, exist_ok=True)
         path.write_text(text)
-    settings = ServiceSettings(require_keys=False,
-        index_dir=tmp / "index", reload_check_seconds=0, max_k=20, max_query_chars=200,
-        max_body_bytes=max_body_bytes,
+    settings = ServiceSettings(
+        require_keys=False, index_dir=tmp / "index", reload_check_seconds=0, max_k=20,
+        max_query_chars=200, max_body_bytes=max_body_bytes, push_wait_seconds=1,
     )
     embedder = HashingEmbedder(16)
     refresh_index([root], settings, embedder)
@@ -78,6 +78,10 @@ OPERATIONS = [
     ("/search", "POST"),
     ("/feedback", "POST"),
     ("/documents/{document_id}", "GET"),
+    ("/documents/{document_id}", "PUT"),
+    ("/documents/{document_id}", "DELETE"),
+    ("/collections", "GET"),
+    ("/context", "POST"),
     ("/health", "GET"),
     ("/metrics", "GET"),
 ]
@@ -217,5 +221,5 @@ def test_unexpected_errors_are_a_json_500_without_the_traceback(
     assert r.status_code == 500
     assert r.json() == {"detail": "internal error; see the service log"}
     assert "secret" not in r.text
-    logged = [rec for rec in caplog.records if rec.name == "sounding.service"]
+    logged = [rec for rec in caplog.records if rec.name == "sounding.service" and rec.exc_info]
     assert logged and logged[0].exc_info and "GET /documents/hr/cycling.md" in logged[0].message
