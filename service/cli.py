@@ -86,12 +86,16 @@ def cmd_index(args: argparse.Namespace) -> int:
 
 
 def cmd_search(args: argparse.Namespace) -> int:
+    from indexer.search import SearchFilter
     from indexer.store import IndexReader
 
     settings = _settings(args)
     reader = IndexReader(settings.index_dir)
     searcher = settings.searcher_factory(settings.embedder())(reader)
-    hits = searcher.search(args.query, args.k, mode=args.mode)
+    # The shell reads the index folder itself, so it sees every document (no groups).
+    where = SearchFilter(collections=tuple(args.collection or ()), tags=tuple(args.tag or ()),
+                         source_prefix=args.under)
+    hits = searcher.search(args.query, args.k, mode=args.mode, where=where)
     if args.json:
         print(json.dumps(
             [h.__dict__ | {"trail": list(h.trail)} for h in hits], indent=2, ensure_ascii=False
@@ -318,9 +322,16 @@ def _parser() -> argparse.ArgumentParser:
         "search", parents=[common], formatter_class=fmt,
         help="search the index from the shell",
         description="Print the passages that best match QUERY.",
-        epilog="example:\n  sounding search 'how do I restore the database?' -k 3",
+        epilog="examples:\n  sounding search 'how do I restore the database?' -k 3\n"
+        "  sounding search 'valve torque' --under runbooks/ --tag pumps",
     )
     p.add_argument("query", metavar="QUERY")
+    p.add_argument("--collection", action="append", metavar="NAME",
+                   help="only this collection (repeat for several)")
+    p.add_argument("--tag", action="append", metavar="TAG",
+                   help="only documents with this tag (repeat: any of them)")
+    p.add_argument("--under", metavar="PREFIX",
+                   help="only documents whose id or source path starts with PREFIX")
     p.add_argument("-k", type=int, default=5, metavar="N", help="passages to show (default 5)")
     p.add_argument("--mode", choices=["dense", "lexical", "hybrid"], default="hybrid",
                    help="dense (meaning), lexical (BM25 words) or hybrid (both; default)")

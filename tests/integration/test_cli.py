@@ -29,7 +29,8 @@ def one_line_error(proc: subprocess.CompletedProcess) -> str:
     return lines[0]
 
 
-@pytest.mark.parametrize("command", ["index", "search", "serve", "eval", "check", "judgments"])
+@pytest.mark.parametrize("command", ["index", "search", "serve", "eval", "check", "judgments",
+                                     "keys"])
 def test_every_command_help_has_an_example(command: str) -> None:
     proc = run(command, "--help")
     assert proc.returncode == 0
@@ -86,6 +87,9 @@ def test_index_and_search_round_trip(tmp_path: Path) -> None:
     assert found.returncode == 0, found.stderr
     (hit,) = json.loads(found.stdout)
     assert hit["document_id"] == "canteen.txt" and hit["rank"] == 1
+    narrowed = run("search", "when can I eat at midday?", "--index", idx, "-k", "1", "--json",
+                   "--under", "boiler")
+    assert [h["document_id"] for h in json.loads(narrowed.stdout)] == ["boiler.md"]
 
 
 @pytest.mark.slow
