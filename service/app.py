@@ -20,7 +20,7 @@ from .auth import open_keys
 from .engine import Engine
 from .limits import RequestLimits
 from .metrics import RequestObserver, ServiceMetrics
-from .routes import documents, feedback, health, page, search
+from .routes import context, documents, feedback, health, page, search
 from .routes import metrics as metrics_route
 from .settings import ServiceSettings
 
@@ -70,7 +70,7 @@ def create_app(
     # RequestLimits' refusals included.
     app.state.metrics = ServiceMetrics(settings.index_dir)
     app.add_middleware(RequestObserver, metrics=app.state.metrics)
-    for module in (search, documents, feedback, health, page):
+    for module in (search, context, documents, feedback, health, page):
         app.include_router(module.router)
     app.include_router(metrics_route.router)  # no key yet: auth dependency goes here
     app.mount("/static", page.static_files(), name="static")

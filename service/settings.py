@@ -25,6 +25,12 @@ class ServiceSettings(IndexSettings):
     port: int = Field(8757, ge=1, le=65535, description="TCP port to listen on.")
     max_query_chars: int = Field(1000, ge=1, description="Longest query accepted, in characters.")
     max_k: int = Field(100, ge=1, le=1000, description="Most passages one search may ask for.")
+    max_context_tokens: int = Field(
+        8192, ge=1, description="Largest budget of a /context request, in encoder tokens."
+    )
+    max_context_chars: int = Field(
+        32768, ge=1, description="Largest budget of a /context request, in characters."
+    )
     reload_check_seconds: float = Field(
         2.0, ge=0, description="How often the service looks for a newer index generation."
     )

@@ -1,0 +1,103 @@
+"""``POST /context``: cited passages that fit a chat bot's prompt budget."""
+
+from __future__ import annotations
+
+import time
+
+from fastapi import APIRouter, HTTPException, Request
+
+from indexer.errors import QueryError
+from indexer.grounding import select_context, token_counter
+
+from ..auth import ReadCaller
+from ..deps import SearcherDep, SettingsDep
+from ..filters import search_filter
+from ..metrics import record_mode
+from ..schemas import ContextPassageOut, ContextRequest, ContextResponse, ErrorResponse
+
+router = APIRouter(tags=["context"])
+
+# Candidates ranked before selection: enough to fill a large budget after the per-document
+# cap and the skips, few enough that counting them stays cheap.
+MIN_POOL, MAX_POOL = 32, 100
+# Roughly four characters per word piece for English text (common practice; a figure from
+# memory), used only to size the candidate pool of a budget in characters.
+CHARS_PER_TOKEN = 4
+# Hits of one document in the pool, at least.
+PER_DOCUMENT_POOL = 8
+
+
+def candidate_pool(budget: int, unit: str) -> int:
+    """How many hits to rank for a budget: about two per chunk-sized share of it."""
+    tokens = budget if unit == "tokens" else budget // CHARS_PER_TOKEN
+    return min(MAX_POOL, max(MIN_POOL, tokens // 64))
+
+
+@router.post(
+    "/context",
+    response_model=ContextResponse,
+    responses={422: {"model": ErrorResponse}, 503: {"model": ErrorResponse}},
+)
+def context(
+    body: ContextRequest,
+    request: Request,
+    searcher: SearcherDep,
+    settings: SettingsDep,
+    caller: ReadCaller,
+) -> ContextResponse:
+    """The best passages for a query whose numbered, cited text block fits ``budget``."""
+    record_mode(request, body.mode)
+    started = time.perf_counter()
+    if len(body.query) > settings.max_query_chars:
+        raise HTTPException(
+            422,
+            f"query is {len(body.query)} characters, over the limit of "
+            f"{settings.max_query_chars} (setting max_query_chars)",
+        )
+    limit, setting = (
+        (settings.max_context_tokens, "max_context_tokens") if body.unit == "tokens"
+        else (settings.max_context_chars, "max_context_chars")
+    )
+    if body.budget > limit:
+        raise HTTPException(
+            422, f"budget={body.budget} {body.unit} is over the limit of {limit} "
+            f"(setting {setting})",
+        )
+    try:
+        hits = searcher.search(
+            body.query, candidate_pool(body.budget, body.unit), mode=body.mode,
+            # Loose, so adjacent windows of one document can join into one passage, yet
+            # one long document cannot fill the whole pool.
+            max_per_document=max(PER_DOCUMENT_POOL, 4 * body.max_per_document),
+            rerank=body.rerank, where=search_filter(caller, body),
+        )
+    except QueryError as exc:
+        raise HTTPException(422, str(exc)) from exc
+    count = token_counter(searcher.embedder.tokenizer) if body.unit == "tokens" else len
+    chosen = select_context(hits, body.budget, count, max_per_document=body.max_per_document)
+    return ContextResponse(
+        query=body.query,
+        budget=body.budget,
+        unit=body.unit,
+        used=chosen.used,
+        mode=body.mode,
+        generation=searcher.reader.generation,
+        took_ms=round((time.perf_counter() - started) * 1000, 3),
+        passages=[
+            ContextPassageOut(
+                number=p.number,
+                document_id=p.citation.document_id,
+                chunk_ids=list(p.chunk_ids),
+                title=p.citation.title,
+                source=p.citation.source,
+                trail=list(p.citation.trail),
+                page=p.citation.page,
+                text=p.text,
+                citation=p.citation.line(),
+                score=p.score,
+                truncated=p.truncated,
+            )
+            for p in chosen.passages
+        ],
+        text=chosen.text,
+    )
