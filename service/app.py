@@ -7,7 +7,7 @@ import math
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
-from fastapi import FastAPI, Request
+from fastapi import Depends, FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 
@@ -16,11 +16,11 @@ from indexer.embedding import Embedder
 from indexer.errors import QueryError, SoundingError
 from indexer.judgments import JudgmentStore
 
-from .auth import open_keys
+from .auth import open_keys, require
 from .engine import Engine
 from .limits import RequestLimits
 from .metrics import RequestObserver, ServiceMetrics
-from .routes import context, documents, feedback, health, page, search
+from .routes import collections, context, documents, feedback, health, page, search
 from .routes import metrics as metrics_route
 from .settings import ServiceSettings
 
@@ -65,14 +65,16 @@ def create_app(
         RequestLimits,
         max_body_bytes=settings.max_body_bytes,
         max_json_depth=settings.max_json_depth,
+        max_upload_bytes=settings.max_upload_bytes,
     )
     # Added last, so outermost: request id, counts and access line for every answer,
     # RequestLimits' refusals included.
     app.state.metrics = ServiceMetrics(settings.index_dir)
     app.add_middleware(RequestObserver, metrics=app.state.metrics)
-    for module in (search, context, documents, feedback, health, page):
+    for module in (search, context, documents, collections, feedback, health, page):
         app.include_router(module.router)
-    app.include_router(metrics_route.router)  # no key yet: auth dependency goes here
+    # Totals and latencies only (no ids, titles or text), but still for key holders.
+    app.include_router(metrics_route.router, dependencies=[Depends(require("read"))])
     app.mount("/static", page.static_files(), name="static")
 
     @app.exception_handler(RequestValidationError)

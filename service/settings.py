@@ -47,6 +47,18 @@ class ServiceSettings(IndexSettings):
     max_body_bytes: int = Field(
         64 * 1024, ge=1, description="Largest request body accepted, in bytes; larger is a 413."
     )
+    max_upload_bytes: int = Field(
+        20 * 2**20, ge=1, description="Largest document accepted by PUT /documents/{id}, in bytes."
+    )
+    push_collection: str = Field(
+        "pushed", min_length=1, description="Collection of documents pushed with PUT "
+        "/documents/{id} that name none. Keep it apart from the folders' collections: a folder "
+        "run removes documents of its collection that are not in the folder."
+    )
+    push_wait_seconds: float = Field(
+        10.0, ge=0, le=600, description="How long a push waits for a running re-index before "
+        "answering 503 with Retry-After."
+    )
     max_json_depth: int = Field(
         32, ge=1, le=1000, description="Deepest nesting of a JSON body accepted; deeper is a 422."
     )
@@ -84,7 +96,6 @@ class ServiceSettings(IndexSettings):
                 "be turned off only on loopback (127.0.0.1); unset SOUNDING_REQUIRE_KEYS "
                 "or listen on 127.0.0.1"
             )
-
 
     def reranker(self):  # -> CrossEncoderReranker | None
         """Load the configured cross-encoder, or None when none is configured."""
