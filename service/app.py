@@ -59,6 +59,10 @@ def create_app(
         version=__version__,
         summary="Meaning-based search over a team's documents, with cited passages.",
         lifespan=lifespan,
+        # FastAPI's /docs and /redoc pages load their scripts from a CDN, which an
+        # air-gapped network cannot reach; the schema itself stays at /openapi.json.
+        docs_url=None,
+        redoc_url=None,
     )
     app.state.settings = settings
     app.add_middleware(

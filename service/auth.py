@@ -68,7 +68,7 @@ class Caller:
 # anonymous caller sees only unrestricted documents.
 ANONYMOUS = Caller(name="anonymous", scope=SCOPES[-1], groups=frozenset())
 
-# Declared so that the OpenAPI schema (and /docs' "Authorize" button) show the scheme; the
+# Declared so that the OpenAPI schema (and viewers' "Authorize" buttons) show the scheme; the
 # header itself is parsed below, to give each refusal its own reason.
 _bearer = HTTPBearer(
     auto_error=False, scheme_name="APIKey", bearerFormat="snd_<id>_<secret>",

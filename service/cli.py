@@ -341,7 +341,7 @@ def _parser() -> argparse.ArgumentParser:
     p = sub.add_parser(
         "serve", parents=[common], formatter_class=fmt,
         help="start the REST service",
-        description="Serve the index over HTTP (OpenAPI schema at /openapi.json, docs at /docs).",
+        description="Serve the index over HTTP: search page at /, OpenAPI schema at /openapi.json.",
         epilog="example:\n  sounding serve --port 8757\n"
         "  curl -s localhost:8757/search -H 'content-type: application/json' "
         "-d '{\"query\": \"who is on call?\", \"k\": 3}'",
