@@ -165,7 +165,8 @@ def _refresh(
     rules = AccessRules.load(settings.access_rules)
     deadline = None if max_runtime is None else started + max_runtime
     with IndexLock(settings.index_dir) as lock, IndexWriter(
-        settings.index_dir, describe(embedder), chunking, rebuild=rebuild
+        settings.index_dir, describe(embedder), chunking, rebuild=rebuild,
+        vectors=settings.vector_choice,
     ) as writer:
         report.lock_taken_over = lock.took_over is not None
         known = writer.known()

@@ -20,7 +20,9 @@ import numpy as np
 
 from .chunking import ChunkSettings
 from .lock import IndexLock
+from .settings import IndexSettings
 from .store import DATABASE, IndexWriter, Manifest, vectors_filename
+from .vectors import VectorChoice, describe_vectors, index_ids
 
 # Documents left without chunks: the index would call them unchanged forever.
 _WITHOUT_CHUNKS = (
@@ -94,8 +96,15 @@ def check_index(index_dir: Path) -> CheckReport:
         if index.d != dim:
             report.problems.append(f"{vectors.name} has {index.d} dimensions, manifest {dim}")
         else:
-            _compare(report, f"vector file {vectors.name}", chunk_ids,
-                     faiss.vector_to_array(index.id_map).astype(np.int64))
+            _compare(report, f"vector file {vectors.name}", chunk_ids, index_ids(index))
+            described = describe_vectors(index)
+            if generation == manifest.generation and described["kind"] != manifest.vectors.get(
+                "kind"
+            ):
+                report.problems.append(
+                    f"{vectors.name} holds an index of kind {described['kind']}, the manifest says "
+                    f"{manifest.vectors.get('kind')}"
+                )
     if generation == manifest.generation and (manifest.documents, manifest.chunks) != (
         docs, len(chunk_ids)
     ):
@@ -124,15 +133,23 @@ def _compare(report: CheckReport, what: str, want: np.ndarray, have: np.ndarray)
         report.problems.append(f"{what} lists some chunks twice")
 
 
-def repair_index(index_dir: Path) -> CheckReport:
-    """Check, rebuild what is derived, and check again. Takes the writer lock."""
+def repair_index(index_dir: Path, vectors: VectorChoice | None = None) -> CheckReport:
+    """Check, rebuild what is derived, and check again. Takes the writer lock.
+
+    A vector file rebuilt follows ``vectors`` (default: the ``SOUNDING_``
+    settings of the environment), as ``sounding index`` would.
+    """
     index_dir = Path(index_dir)
+    if vectors is None:
+        vectors = IndexSettings().vector_choice
     before = check_index(index_dir)
     if before.ok:
         return before
     manifest = Manifest.read(index_dir)
     chunking = ChunkSettings(manifest.chunking["max_tokens"], manifest.chunking["overlap"])
-    with IndexLock(index_dir), IndexWriter(index_dir, manifest.model, chunking) as writer:
+    with IndexLock(index_dir), IndexWriter(
+        index_dir, manifest.model, chunking, vectors=vectors
+    ) as writer:
         conn = writer.conn
         done: list[str] = []
         empty = [r[0] for r in conn.execute(f"SELECT id {_WITHOUT_CHUNKS}")]

@@ -3,11 +3,13 @@
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Literal
 
 from pydantic import Field
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 from .chunking import ChunkSettings
+from .vectors import DEFAULT_EXACT_BELOW, VectorChoice
 
 
 class IndexSettings(BaseSettings):
@@ -51,6 +53,25 @@ class IndexSettings(BaseSettings):
     max_file_bytes: int = Field(
         50 * 2**20, ge=1, description="Files larger than this are skipped with a reason."
     )
+    vector_index: Literal["auto", "exact", "ivf"] = Field(
+        "auto",
+        description="FAISS index of the chunk vectors: exact (brute force), ivf (IVF cells "
+        "with 8-bit scalar quantisation, recall@10 calibrated to about 0.97), or auto: exact "
+        "below exact_below chunks, ivf from there. Applied at the next `sounding index`.",
+    )
+    exact_below: int = Field(
+        DEFAULT_EXACT_BELOW, ge=0, description="With vector_index=auto, collections of fewer "
+        "chunks get the exact index.",
+    )
+    ivf_nprobe: int | None = Field(
+        None, ge=1, description="IVF cells a query scans; empty means calibrated on the data "
+        "when the IVF is built. Applied at the next `sounding index`.",
+    )
+
+    @property
+    def vector_choice(self) -> VectorChoice:
+        """The vector index settings as the index writer takes them."""
+        return VectorChoice(self.vector_index, self.exact_below, self.ivf_nprobe)
 
     @property
     def chunking(self) -> ChunkSettings:

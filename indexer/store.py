@@ -6,8 +6,10 @@ Layout of an index folder (``SCHEMA_VERSION`` below)::
     last-run.json          outcome of the last indexing run (for monitoring)
     sounding.db            SQLite: documents, chunks (text, metadata and vector),
                            chunks_fts (FTS5, BM25 over title + trail + text)
-    vectors-<gen>.faiss    FAISS IndexIDMap2(IndexFlatIP) over the chunk vectors,
-                           keyed by the chunk ids SQLite assigns
+    vectors-<gen>.faiss    FAISS index over the chunk vectors, keyed by the chunk
+                           ids SQLite assigns: exact (IndexIDMap2(IndexFlatIP)) or,
+                           for large collections, IVF,SQ8 (see indexer/vectors.py);
+                           the manifest's ``vectors`` entry names kind and parameters
 
 SQLite is the source of truth: every chunk row keeps its float32 vector, so
 the FAISS file is derived data that a writer (or a reader, in memory) can
@@ -25,7 +27,7 @@ import threading
 import time
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager, suppress
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
 from typing import Any
@@ -39,6 +41,19 @@ from .chunking import Chunk, ChunkSettings
 from .documents import Document
 from .errors import IndexCorruptError, IndexMismatchError, IndexMissingError, IndexStoreError
 from .selection import SearchFilter
+from .vectors import (
+    DEFAULT_CHOICE,
+    EXACT,
+    KINDS,
+    VectorChoice,
+    VectorPlan,
+    build_vectors,
+    describe_vectors,
+    index_ids,
+    needs_rebuild,
+    plan_vectors,
+    search_vectors,
+)
 
 SCHEMA_VERSION = 2
 # Filters whose allowed chunk ids a reader keeps (one entry per distinct caller groups + filter).
@@ -102,6 +117,8 @@ class Manifest:
     chunks: int = 0
     updated_at: float = 0.0
     schema_version: int = SCHEMA_VERSION
+    # Kind and parameters of the FAISS index (indexer/vectors.py); absent means exact.
+    vectors: dict[str, Any] = field(default_factory=lambda: {"kind": EXACT})
 
     @property
     def vectors_file(self) -> str:
@@ -118,6 +135,7 @@ class Manifest:
             "documents": self.documents,
             "chunks": self.chunks,
             "updated_at": self.updated_at,
+            "vectors": self.vectors,
         }
 
     @classmethod
@@ -148,6 +166,7 @@ class Manifest:
             documents=int(data.get("documents", 0)),
             chunks=int(data.get("chunks", 0)),
             updated_at=float(data.get("updated_at", 0.0)),
+            vectors=VectorPlan.from_json(data.get("vectors")).to_json(),
         )
 
     def write(self, index_dir: Path) -> None:
@@ -247,15 +266,6 @@ def _vector_blob(vector: np.ndarray) -> bytes:
     return np.ascontiguousarray(vector, dtype=np.float32).tobytes()
 
 
-def _flat_index(dimension: int) -> faiss.IndexIDMap2:
-    # Inner product on L2-normalised vectors is cosine similarity.
-    return faiss.IndexIDMap2(faiss.IndexFlatIP(dimension))
-
-
-def _index_ids(index: faiss.Index) -> np.ndarray:
-    return faiss.vector_to_array(index.id_map).astype(np.int64)
-
-
 def _load_vectors(conn: sqlite3.Connection, dimension: int, ids: Sequence[int] | None = None):
     """Ids and an (n, d) float32 matrix of chunk vectors, all or only ``ids``."""
     if ids is None:
@@ -291,8 +301,10 @@ class IndexWriter:
         chunking: ChunkSettings,
         *,
         rebuild: bool = False,
+        vectors: VectorChoice = DEFAULT_CHOICE,
     ) -> None:
         self.index_dir = Path(index_dir)
+        self.vector_choice = vectors
         try:
             # The index holds document text: readable by its owner only.
             self.index_dir.mkdir(parents=True, exist_ok=True, mode=0o700)
@@ -343,13 +355,18 @@ class IndexWriter:
         committed = _state_generation(self.conn)
         if self.previous is None or committed is None or committed <= self.previous.generation:
             return
-        if (self.index_dir / vectors_filename(committed)).is_file():
+        path = self.index_dir / vectors_filename(committed)
+        if path.is_file():
             docs = self.conn.execute("SELECT count(*) FROM documents").fetchone()[0]
             chunks = self.conn.execute("SELECT count(*) FROM chunks").fetchone()[0]
+            try:  # the committed file says what it is (an IVF's lists mapped, not read)
+                described = describe_vectors(faiss.read_index(str(path), faiss.IO_FLAG_MMAP))
+            except RuntimeError:
+                described = self.previous.vectors  # unreadable: the next publish rebuilds it
             self.previous = Manifest(
                 model=self.previous.model, chunking=self.previous.chunking,
                 generation=committed, documents=int(docs), chunks=int(chunks),
-                updated_at=time.time(),
+                updated_at=time.time(), vectors=described,
             )
             self.previous.write(self.index_dir)
 
@@ -552,6 +569,7 @@ class IndexWriter:
             documents=int(docs),
             chunks=int(index.ntotal),
             updated_at=time.time(),
+            vectors=describe_vectors(index),
         )
         manifest.write(self.index_dir)
         for old in self.index_dir.glob("vectors-*.faiss"):
@@ -561,8 +579,13 @@ class IndexWriter:
         self.conn.execute("BEGIN IMMEDIATE")
         return manifest
 
-    def _updated_faiss(self) -> faiss.IndexIDMap2:
-        """The previous generation's FAISS index brought in step with SQLite."""
+    def _updated_faiss(self) -> faiss.Index:
+        """The previous generation's FAISS index brought in step with SQLite.
+
+        Changed in place (ids removed and added) while its kind still suits the
+        collection's size; built anew from the chunk rows when it is missing,
+        unreadable, or :func:`~indexer.vectors.needs_rebuild` says so.
+        """
         index = None
         if self.previous is not None:
             path = self.index_dir / self.previous.vectors_file
@@ -573,16 +596,18 @@ class IndexWriter:
                     index = None  # unreadable: rebuilt from SQLite below
             if index is not None and index.d != self.dimension:
                 index = None
-        if index is None:
-            index = _flat_index(self.dimension)
-            ids, matrix = _load_vectors(self.conn, self.dimension)
-            if len(ids):
-                index.add_with_ids(matrix, ids)
-            return index
-        have = _index_ids(index)
         want = np.fromiter(
             (r[0] for r in self.conn.execute("SELECT id FROM chunks")), dtype=np.int64
         )
+        choice = self.vector_choice
+        if index is None or needs_rebuild(index, len(want), choice):
+            ids, matrix = _load_vectors(self.conn, self.dimension)
+            plan = plan_vectors(len(ids), self.dimension, kind=choice.kind,
+                                exact_below=choice.exact_below, nprobe=choice.nprobe)
+            return build_vectors(plan, ids, matrix)
+        if choice.nprobe is not None and isinstance(index, faiss.IndexIVF):
+            index.nprobe = min(choice.nprobe, index.nlist)
+        have = index_ids(index)
         stale = np.setdiff1d(have, want, assume_unique=True)
         if len(stale):
             index.remove_ids(stale)
@@ -699,12 +724,15 @@ class IndexReader:
         try:
             self.vectors: faiss.Index = faiss.read_index(str(vectors))
         except RuntimeError:
-            # A missing or unreadable vector file is derived data: rebuild it in memory.
-            self.vectors = _flat_index(self.dimension)
+            # A missing or unreadable vector file is derived data: rebuild it in memory,
+            # of the kind (and nprobe) the manifest records.
             with self._connection() as conn:
                 ids, matrix = _load_vectors(conn, self.dimension)
-            if len(ids):
-                self.vectors.add_with_ids(matrix, ids)
+            recorded = VectorPlan.from_json(self.manifest.vectors)
+            kind = recorded.kind if recorded.kind in KINDS else "auto"
+            plan = plan_vectors(len(ids), self.dimension, kind=kind,
+                                nprobe=recorded.params.get("nprobe"))
+            self.vectors = build_vectors(plan, ids, matrix)
         if self.vectors.d != self.dimension:
             raise IndexCorruptError(
                 f"{vectors} has {self.vectors.d} dimensions, the manifest says {self.dimension}; "
@@ -753,9 +781,19 @@ class IndexReader:
         if queries.ndim != 2 or queries.shape[1] != self.dimension:
             raise ValueError(f"queries must have shape (m, {self.dimension})")
         k = max(1, min(k, int(self.vectors.ntotal) or 1))
+        return search_vectors(self.vectors, queries, k, selector=selector,
+                              allowed=self._selected_count(selector))
+
+    def _selected_count(self, selector: faiss.IDSelector | None) -> int | None:
+        """How many chunk ids a selector of :meth:`selector` admits (an IVF probes more
+        cells for a narrow one); None for other selectors."""
         if selector is None:
-            return self.vectors.search(queries, k)
-        return self.vectors.search(queries, k, params=faiss.SearchParameters(sel=selector))
+            return None
+        with self._cache_lock:
+            for ids, sel in self._allowed.values():
+                if sel is selector:
+                    return len(ids)
+        return None
 
     def lexical(
         self, match: str, k: int, where: SearchFilter | None = None
