@@ -7,6 +7,7 @@ import math
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
+import faiss
 from fastapi import Depends, FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
@@ -40,6 +41,7 @@ def create_app(
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        faiss.omp_set_num_threads(settings.search_threads)
         enc = embedder if embedder is not None else settings.embedder()
         enc.encode(["warm-up"])  # load weights now, not on the first user's query
         app.state.engine = Engine(

@@ -47,6 +47,11 @@ class ServiceSettings(IndexSettings):
     max_body_bytes: int = Field(
         64 * 1024, ge=1, description="Largest request body accepted, in bytes; larger is a 413."
     )
+    search_threads: int = Field(
+        1, ge=1, le=256, description="FAISS threads per query. One: requests already run in "
+        "parallel, and more threads per query made single queries several times slower on a "
+        "busy 2-core machine (tests/bench/vectors.py)."
+    )
     max_upload_bytes: int = Field(
         20 * 2**20, ge=1, description="Largest document accepted by PUT /documents/{id}, in bytes."
     )
