@@ -213,7 +213,8 @@ def put_document(
 @router.delete(
     "/documents/{document_id:path}",
     response_model=PushResponse,
-    responses={404: {"model": ErrorResponse}, 503: {"model": ErrorResponse}},
+    responses={404: {"model": ErrorResponse}, 422: {"model": ErrorResponse},
+               503: {"model": ErrorResponse}},
 )
 def remove_document(
     document_id: DocumentId, caller: WriteCaller, settings: SettingsDep, engine: EngineDep,
