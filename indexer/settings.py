@@ -36,6 +36,15 @@ class IndexSettings(BaseSettings):
     )
     chunk_overlap: int = Field(32, description="Word pieces shared by consecutive windows.")
     batch_size: int = Field(32, ge=1, le=4096, description="Texts per encoder batch.")
+    precision: Literal["auto", "fp32", "bf16"] = Field(
+        "auto",
+        description="Encoder arithmetic: auto is bf16 where the CPU has native bf16 "
+        "(avx512_bf16 or amx_bf16), else fp32. Vectors are float32 either way; an index "
+        "built in one precision is queryable in the other.",
+    )
+    threads: int | None = Field(
+        None, ge=1, description="Torch threads of the encoder; empty means every usable core."
+    )
     rrf_k: int = Field(
         60, ge=0, description="k of reciprocal rank fusion in hybrid mode (Cormack et al. 2009)."
     )
@@ -89,4 +98,7 @@ class IndexSettings(BaseSettings):
         """Load the configured encoder."""
         from .embedding import SentenceTransformerEmbedder
 
-        return SentenceTransformerEmbedder(self.model_path, batch_size=self.batch_size)
+        return SentenceTransformerEmbedder(
+            self.model_path, batch_size=self.batch_size, precision=self.precision,
+            threads=self.threads,
+        )

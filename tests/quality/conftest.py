@@ -162,22 +162,17 @@ class Benchmarks:
         dense = evaluate(run_from_rankings(qids, rankings), qrels, MEASURES)
 
         # Reference: the same encoder on whole documents, exact search by cosine.
+        import torch
         from sentence_transformers import util
 
         records = read_corpus(corpus)
-        model = self._embedder.model
         started = time.monotonic()
-        doc_emb = model.encode(
-            [f"{r.get('title', '')} {r.get('text', '')}" for r in records],
-            batch_size=64,
-            normalize_embeddings=True,
-            convert_to_tensor=True,
-            show_progress_bar=False,
-        )
-        query_emb = model.encode(
-            texts, batch_size=64, normalize_embeddings=True, convert_to_tensor=True,
-            show_progress_bar=False,
-        )
+        # Through the embedder, not its model: float32 unit rows whatever the precision
+        # (a bf16 model's own encode returns bf16, whose scores would tie in the top 100).
+        doc_emb = torch.from_numpy(self._embedder.encode(
+            [f"{r.get('title', '')} {r.get('text', '')}" for r in records]
+        ))
+        query_emb = torch.from_numpy(self._embedder.encode(texts))
         hits = util.semantic_search(query_emb, doc_emb, top_k=DEPTH)
         reference_seconds = time.monotonic() - started
         ref_run = {
