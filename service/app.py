@@ -42,7 +42,8 @@ def create_app(
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         faiss.omp_set_num_threads(settings.search_threads)
-        enc = embedder if embedder is not None else settings.embedder()
+        enc = embedder if embedder is not None else settings.model_copy(
+            update={"threads": settings.query_threads}).embedder()
         enc.encode(["warm-up"])  # load weights now, not on the first user's query
         app.state.engine = Engine(
             settings.index_dir, enc, settings.searcher_factory(enc),

@@ -52,6 +52,11 @@ class ServiceSettings(IndexSettings):
         "parallel, and more threads per query made single queries several times slower on a "
         "busy 2-core machine (tests/bench/vectors.py)."
     )
+    query_threads: int = Field(
+        1, ge=1, le=256, description="Torch threads of the service's encoder (queries, pushes). "
+        "One: with a nightly re-index using every core beside it, a query's encoding took "
+        "400 ms at two threads and 10 ms at one (tests/bench/encode.py on 2 cores)."
+    )
     max_upload_bytes: int = Field(
         20 * 2**20, ge=1, description="Largest document accepted by PUT /documents/{id}, in bytes."
     )

@@ -2,11 +2,11 @@
 
 For each index size, builds (or reuses, under --cache) a synthetic index: documents of
 10 chunks whose text draws Zipf-distributed words from a 5,000-word vocabulary and whose
-vectors are seeded random unit vectors, stamped with the bundled encoder's identity so the
-real service opens it. Starts `sounding serve` as its own process on a free loopback
-port, then drives POST /search with N concurrent clients for a bounded time per mode
-(dense, lexical, hybrid), queries encoded for real by the service. Prints throughput,
-p50/p95/p99 latency and errors, and the service's resident memory.
+vectors are clustered synthetic unit vectors (tests/bench/vectors.py), stamped with the
+bundled encoder's identity so the real service opens it. Starts `sounding serve` as its own
+process on a free loopback port, then drives POST /search with N concurrent clients for a
+bounded time per mode (dense, lexical, hybrid), queries encoded for real by the service.
+Prints throughput, p50/p95/p99 latency and errors, and the service's resident memory.
 """
 
 from __future__ import annotations
@@ -32,18 +32,25 @@ from indexer.chunking import Chunk, ChunkSettings  # noqa: E402
 from indexer.documents import Document, Section  # noqa: E402
 from indexer.embedding import SentenceTransformerEmbedder, describe  # noqa: E402
 from indexer.store import IndexWriter, Manifest  # noqa: E402
+from indexer.vectors import plan_vectors  # noqa: E402
 
 
 def build_synthetic(index_dir: Path, n_chunks: int, seed: int = 0) -> None:
     """A synthetic index of ``n_chunks`` chunks (skipped when one of that size exists)."""
     try:
-        if Manifest.read(index_dir).chunks == n_chunks:
+        manifest = Manifest.read(index_dir)
+        wanted = plan_vectors(n_chunks, manifest.model["dimension"]).kind
+        if manifest.chunks == n_chunks and manifest.vectors.get("kind") == wanted:
             return
     except Exception:  # noqa: BLE001 - no usable index yet: build it
         pass
+    from tests.bench.vectors import synthetic
+
     rng = np.random.default_rng(seed)
     vocab = [f"term{i}" for i in range(5000)]
     model = describe(SentenceTransformerEmbedder())
+    # Clustered like real chunk vectors, so the automatic FAISS index is sized as in use.
+    all_vectors, _ = synthetic(n_chunks - n_chunks % 10, 0, seed)
     with IndexWriter(index_dir, model, ChunkSettings(), rebuild=True) as writer:
         for d in range(n_chunks // 10):
             ranks = np.minimum(rng.zipf(1.3, size=10 * 80), 5000) - 1
@@ -56,9 +63,7 @@ def build_synthetic(index_dir: Path, n_chunks: int, seed: int = 0) -> None:
             doc = Document(id=f"doc-{d:06d}", title=f"Synthetic page {d}", source="synthetic",
                            modified=0.0, content_hash=str(d), kind="text",
                            sections=(Section((), "x"),))
-            vectors = rng.standard_normal((10, model["dimension"])).astype(np.float32)
-            vectors /= np.linalg.norm(vectors, axis=1, keepdims=True)
-            writer.put(doc, "synthetic", chunks, vectors)
+            writer.put(doc, "synthetic", chunks, all_vectors[d * 10 : (d + 1) * 10])
         writer.publish()
 
 
