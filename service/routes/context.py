@@ -11,7 +11,7 @@ from indexer.grounding import select_context, token_counter
 
 from ..auth import ReadCaller
 from ..deps import SearcherDep, SettingsDep
-from ..filters import search_filter
+from ..filters import check_query_length, search_filter
 from ..metrics import record_mode
 from ..schemas import ContextPassageOut, ContextRequest, ContextResponse, ErrorResponse
 
@@ -48,12 +48,7 @@ def context(
     """The best passages for a query whose numbered, cited text block fits ``budget``."""
     record_mode(request, body.mode)
     started = time.perf_counter()
-    if len(body.query) > settings.max_query_chars:
-        raise HTTPException(
-            422,
-            f"query is {len(body.query)} characters, over the limit of "
-            f"{settings.max_query_chars} (setting max_query_chars)",
-        )
+    check_query_length(body.query, settings.max_query_chars)
     limit, setting = (
         (settings.max_context_tokens, "max_context_tokens") if body.unit == "tokens"
         else (settings.max_context_chars, "max_context_chars")

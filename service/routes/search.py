@@ -12,7 +12,7 @@ from indexer.search import Timings
 
 from ..auth import ReadCaller
 from ..deps import SearcherDep, SettingsDep
-from ..filters import search_filter
+from ..filters import check_query_length, search_filter
 from ..metrics import record_mode
 from ..schemas import ErrorResponse, Passage, SearchRequest, SearchResponse
 
@@ -51,12 +51,7 @@ def search(
     """
     record_mode(request, body.mode)
     started = time.perf_counter()
-    if len(body.query) > settings.max_query_chars:
-        raise HTTPException(
-            422,
-            f"query is {len(body.query)} characters, over the limit of "
-            f"{settings.max_query_chars} (setting max_query_chars)",
-        )
+    check_query_length(body.query, settings.max_query_chars)
     if body.k > settings.max_k:
         raise HTTPException(
             422, f"k={body.k} is over the limit of {settings.max_k} (setting max_k)"

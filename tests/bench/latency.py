@@ -14,9 +14,7 @@ resident memory. Queries are distinct, so nothing is answered from a cache.
 from __future__ import annotations
 
 import argparse
-import os
 import statistics
-import subprocess
 import sys
 import tempfile
 import time
@@ -27,7 +25,7 @@ import httpx
 REPO = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(REPO))
 
-from tests.bench.load import build_synthetic, free_port, rss_mib  # noqa: E402
+from tests.bench.load import build_synthetic, rss_mib, serving  # noqa: E402
 
 STAGES = ("encode", "dense", "lexical", "fusion", "fetch", "serialise")
 
@@ -61,47 +59,28 @@ def main() -> None:
     for n in args.chunks:
         index_dir = root / f"synthetic-{n}"
         build_synthetic(index_dir, n)
-        port = free_port()
-        env = {k: v for k, v in os.environ.items() if not k.startswith("SOUNDING_")}
-        server = subprocess.Popen(
-            [sys.executable, "-m", "service.cli", "serve", "--index", str(index_dir),
-             "--port", str(port)],
-            env=env | {"SOUNDING_LOG_LEVEL": "warning", "SOUNDING_REQUIRE_KEYS": "false"},
-            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
-        )
-        base = f"http://127.0.0.1:{port}"
-        try:
-            for _ in range(600):
-                try:
-                    if httpx.get(f"{base}/health", timeout=2).json().get("index_loaded"):
-                        break
-                except httpx.HTTPError:
-                    pass
-                time.sleep(0.5)
-            with httpx.Client(base_url=base, timeout=30) as http:
-                for i in range(30):  # warm-up: first-call costs (threads, caches, allocator)
-                    http.post("/search", json={"query": f"warm {words[i]}", "k": 10})
-                for mode in args.modes:
-                    e2e: list[float] = []
-                    stages: dict[str, list[float]] = {s: [] for s in STAGES}
-                    inside: list[float] = []
-                    for i in range(args.queries):
-                        q = " ".join(words[(i * p) % 5000] for p in (7, 13, 31, 101)[: 2 + i % 3])
-                        started = time.perf_counter()
-                        r = http.post("/search", json={"query": q, "k": 10, "mode": mode})
-                        e2e.append((time.perf_counter() - started) * 1000)
-                        r.raise_for_status()
-                        timing = server_timing(r.headers.get("server-timing", ""))
-                        for s in STAGES:
-                            stages[s].append(timing.get(s, 0.0))
-                        inside.append(sum(timing.values()))
-                    other = statistics.median(e - t for e, t in zip(e2e, inside, strict=True))
-                    print(f"{n:>8} {mode:<8}{pct(e2e, 0.5):>8.1f}{pct(e2e, 0.99):>8.1f}  "
-                          + "".join(f"{statistics.median(stages[s]):>10.2f}" for s in STAGES)
-                          + f"{other:>8.2f}{rss_mib(server.pid):>9.0f}", flush=True)
-        finally:
-            server.terminate()
-            server.wait(timeout=30)
+        with serving(index_dir) as (base, server), \
+                httpx.Client(base_url=base, timeout=30) as http:
+            for i in range(30):  # warm-up: first-call costs (threads, caches, allocator)
+                http.post("/search", json={"query": f"warm {words[i]}", "k": 10})
+            for mode in args.modes:
+                e2e: list[float] = []
+                stages: dict[str, list[float]] = {s: [] for s in STAGES}
+                inside: list[float] = []
+                for i in range(args.queries):
+                    q = " ".join(words[(i * p) % 5000] for p in (7, 13, 31, 101)[: 2 + i % 3])
+                    started = time.perf_counter()
+                    r = http.post("/search", json={"query": q, "k": 10, "mode": mode})
+                    e2e.append((time.perf_counter() - started) * 1000)
+                    r.raise_for_status()
+                    timing = server_timing(r.headers.get("server-timing", ""))
+                    for s in STAGES:
+                        stages[s].append(timing.get(s, 0.0))
+                    inside.append(sum(timing.values()))
+                other = statistics.median(e - t for e, t in zip(e2e, inside, strict=True))
+                print(f"{n:>8} {mode:<8}{pct(e2e, 0.5):>8.1f}{pct(e2e, 0.99):>8.1f}  "
+                      + "".join(f"{statistics.median(stages[s]):>10.2f}" for s in STAGES)
+                      + f"{other:>8.2f}{rss_mib(server.pid):>9.0f}", flush=True)
 
 
 if __name__ == "__main__":

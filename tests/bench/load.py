@@ -20,6 +20,8 @@ import sys
 import tempfile
 import threading
 import time
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 import httpx
@@ -80,6 +82,33 @@ def rss_mib(pid: int) -> float:
     return float("nan")
 
 
+@contextmanager
+def serving(index_dir: Path) -> Iterator[tuple[str, subprocess.Popen]]:
+    """`sounding serve` on a free loopback port, keys off, once its index is loaded."""
+    port = free_port()
+    env = {k: v for k, v in os.environ.items() if not k.startswith("SOUNDING_")}
+    server = subprocess.Popen(
+        [sys.executable, "-m", "service.cli", "serve", "--index", str(index_dir),
+         "--port", str(port)],
+        env=env | {"SOUNDING_LOG_LEVEL": "warning", "SOUNDING_MAX_K": "100",
+                   "SOUNDING_REQUIRE_KEYS": "false"},
+        stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+    )
+    base = f"http://127.0.0.1:{port}"
+    try:
+        for _ in range(600):
+            try:
+                if httpx.get(f"{base}/health", timeout=2).json().get("index_loaded"):
+                    break
+            except httpx.HTTPError:
+                pass
+            time.sleep(0.2)
+        yield base, server
+    finally:
+        server.terminate()
+        server.wait(timeout=30)
+
+
 def drive(base: str, mode: str, clients: int, seconds: float) -> tuple[list[float], int, float]:
     latencies: list[float] = []
     errors = 0
@@ -130,24 +159,7 @@ def main() -> None:
     for n in args.chunks:
         index_dir = root / f"synthetic-{n}"
         build_synthetic(index_dir, n)
-        port = free_port()
-        env = {k: v for k, v in os.environ.items() if not k.startswith("SOUNDING_")}
-        server = subprocess.Popen(
-            [sys.executable, "-m", "service.cli", "serve", "--index", str(index_dir),
-             "--port", str(port)],
-            env=env | {"SOUNDING_LOG_LEVEL": "warning", "SOUNDING_MAX_K": "100",
-                       "SOUNDING_REQUIRE_KEYS": "false"},
-            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
-        )
-        base = f"http://127.0.0.1:{port}"
-        try:
-            for _ in range(600):
-                try:
-                    if httpx.get(f"{base}/health", timeout=2).json().get("index_loaded"):
-                        break
-                except httpx.HTTPError:
-                    pass
-                time.sleep(0.2)
+        with serving(index_dir) as (base, server):
             for mode in ("dense", "lexical", "hybrid"):
                 drive(base, mode, args.clients, 2.0)  # warm
                 lat, errors, wall = drive(base, mode, args.clients, args.seconds)
@@ -155,9 +167,6 @@ def main() -> None:
                      if len(lat) > 1 else [0.0] * 99)
                 print(f"{n:>8} {mode:<8}{len(lat) / wall:>8.1f}{q[49]:>8.1f}{q[94]:>8.1f}"
                       f"{q[98]:>8.1f}{errors:>8}{rss_mib(server.pid):>9.0f}", flush=True)
-        finally:
-            server.terminate()
-            server.wait(timeout=30)
 
 
 if __name__ == "__main__":
