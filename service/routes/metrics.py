@@ -7,8 +7,7 @@ from fastapi import APIRouter, Request, Response
 
 from ..metrics import CONTENT_TYPE, ServiceMetrics
 
-# No key is asked for yet: the authentication dependency goes on this router
-# (APIRouter(dependencies=[...])) when keys are wired into the routes.
+# A read key is required: create_app includes this router with the dependency.
 router = APIRouter(tags=["operations"])
 
 
