@@ -56,8 +56,11 @@ from .vectors import (
 )
 
 SCHEMA_VERSION = 2
-# Filters whose allowed chunk ids a reader keeps (one entry per distinct caller groups + filter).
+# Filters whose admitted chunk ids a reader keeps (one entry per distinct groups + filter),
+# and the most ids all entries may hold together: a FAISS IDSelectorBatch costs tens of
+# bytes per id, and filters with a time in them can be all different.
 _FILTER_CACHE = 64
+_FILTER_CACHE_IDS = 2_000_000
 FORMAT = "sounding-index"
 MANIFEST = "manifest.json"
 DATABASE = "sounding.db"
@@ -852,8 +855,10 @@ class IndexReader:
         entry = (ids, faiss.IDSelectorBatch(len(ids), faiss.swig_ptr(ids)))
         with self._cache_lock:
             self._allowed[key] = entry
-            while len(self._allowed) > _FILTER_CACHE:
-                self._allowed.pop(next(iter(self._allowed)))
+            held = sum(len(e[0]) for e in self._allowed.values())
+            while len(self._allowed) > 1 and (len(self._allowed) > _FILTER_CACHE
+                                              or held > _FILTER_CACHE_IDS):
+                held -= len(self._allowed.pop(next(iter(self._allowed)))[0])
         return entry
 
     def allowed_chunks(self, where: SearchFilter | None) -> np.ndarray | None:

@@ -333,3 +333,18 @@ def test_push_waits_for_the_lock_then_gives_up(wiki) -> None:
 def test_unusable_pushed_bytes(kind: str, data: str) -> None:
     with pytest.raises(LoadError):
         _doc("x", data, kind)
+
+
+def test_filter_cache_is_bounded_by_ids_held(wiki, monkeypatch: pytest.MonkeyPatch) -> None:
+    import indexer.store as store
+
+    _, settings, _ = wiki
+    monkeypatch.setattr(store, "_FILTER_CACHE_IDS", 3)
+    reader = IndexReader(settings.index_dir)
+    for t in range(10):  # filters with a time in them: each one different
+        assert reader.allowed_chunks(SearchFilter(modified_after=float(t))) is not None
+    held = [len(ids) for ids, _ in reader._allowed.values()]
+    assert len(held) == 1 or sum(held) <= 3
+    # An evicted filter is simply computed again, with the same answer.
+    again = reader.allowed_chunks(SearchFilter(modified_after=0.0))
+    assert again is not None and len(again) == reader.counts()[1]
