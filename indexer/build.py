@@ -333,7 +333,7 @@ def push_document(
         pending = _Pending(doc, collection, chunks, known is None, groups, tags)
         _embed_and_store(writer, embedder, [pending], report)
         manifest = writer.publish()
-    write_last_run(settings.index_dir, "ok", f"pushed {doc.id}", generation=manifest.generation)
+    # No last-run record: it reports folder runs, and a push must not hide a failed one.
     return PushReport(doc.id, "added" if known is None else "updated", len(chunks),
                       report.chunks_embedded, manifest.generation)
 
