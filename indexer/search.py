@@ -110,13 +110,15 @@ class Searcher:
         self, queries: Sequence[str], depth: int, where: SearchFilter | None = None,
         timings: Timings = _UNTIMED,
     ) -> list[list[tuple[int, float]]]:
-        allowed = self.reader.allowed_chunks(where)
-        if allowed is not None and not len(allowed):
+        admitted = self.reader.admitted(where)
+        if admitted is not None and not len(admitted[0]):
             return [[] for _ in queries]
+        ids, selector = admitted if admitted is not None else (None, None)
         with timings.stage("encode"):
             vectors = self.embedder.encode(list(queries))
         with timings.stage("dense"):
-            D, I = self.reader.search(vectors, depth, selector=self.reader.selector(where))
+            D, I = self.reader.search(vectors, depth, selector=selector,
+                                      allowed=None if ids is None else len(ids))
         return [
             [(int(i), float(s)) for s, i in zip(d, ids, strict=True) if i >= 0]
             for d, ids in zip(D, I, strict=True)

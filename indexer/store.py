@@ -710,6 +710,7 @@ class IndexReader:
             )
         self._local = threading.local()
         self._allowed: dict[tuple[Any, ...], tuple[np.ndarray, faiss.IDSelector]] = {}
+        self._counts: dict[tuple[Any, ...], tuple[int, int]] = {}
         self._cache_lock = threading.Lock()
         self._pinned: sqlite3.Connection | None = None
         self._pin_lock = threading.Lock()
@@ -774,29 +775,19 @@ class IndexReader:
         return int(docs), int(self.vectors.ntotal)
 
     def search(
-        self, queries: np.ndarray, k: int, *, selector: faiss.IDSelector | None = None
+        self, queries: np.ndarray, k: int, *, selector: faiss.IDSelector | None = None,
+        allowed: int | None = None,
     ) -> tuple[np.ndarray, np.ndarray]:
         """FAISS search: ``D`` scores and ``I`` chunk ids, shape (m, k); -1 pads.
 
-        With ``selector`` only the chunk ids it selects are ranked.
+        With ``selector`` only the chunk ids it selects are ranked; ``allowed``,
+        how many that is, lets an IVF index probe more cells for a narrow one.
         """
         queries = np.ascontiguousarray(queries, dtype=np.float32)
         if queries.ndim != 2 or queries.shape[1] != self.dimension:
             raise ValueError(f"queries must have shape (m, {self.dimension})")
         k = max(1, min(k, int(self.vectors.ntotal) or 1))
-        return search_vectors(self.vectors, queries, k, selector=selector,
-                              allowed=self._selected_count(selector))
-
-    def _selected_count(self, selector: faiss.IDSelector | None) -> int | None:
-        """How many chunk ids a selector of :meth:`selector` admits (an IVF probes more
-        cells for a narrow one); None for other selectors."""
-        if selector is None:
-            return None
-        with self._cache_lock:
-            for ids, sel in self._allowed.values():
-                if sel is selector:
-                    return len(ids)
-        return None
+        return search_vectors(self.vectors, queries, k, selector=selector, allowed=allowed)
 
     def lexical(
         self, match: str, k: int, where: SearchFilter | None = None
@@ -807,14 +798,15 @@ class IndexReader:
         With ``where``, only chunks of documents it admits are ranked (the
         condition is part of the query, so the top ``k`` are all admitted).
         """
-        if self.allowed_chunks(where) is None:
+        # Only whether the filter restricts anything: the admitted ids are not needed here.
+        if where is None or not self._restricts(where):
             rows = self._rows(
                 "SELECT rowid, bm25(chunks_fts) FROM chunks_fts WHERE chunks_fts MATCH ? "
                 "ORDER BY bm25(chunks_fts) LIMIT ?",
                 [match, int(k)],
             )
         else:
-            cond, params = where.sql()  # type: ignore[union-attr]
+            cond, params = where.sql()
             rows = self._rows(
                 "SELECT f.rowid, bm25(chunks_fts) FROM chunks_fts f "
                 "JOIN chunks c ON c.id = f.rowid JOIN documents d ON d.id = c.document_id "
@@ -831,12 +823,19 @@ class IndexReader:
         """Whether any document of this generation is readable by some groups only."""
         return bool(self._rows("SELECT 1 FROM documents WHERE groups != '[]' LIMIT 1"))
 
-    def _admitted(self, where: SearchFilter) -> tuple[np.ndarray, faiss.IDSelector] | None:
+    def _restricts(self, where: SearchFilter) -> bool:
+        """Whether ``where`` leaves out any chunk of this generation (it may not, when it only
+        names the caller's groups and no document is restricted)."""
+        return where.narrows or (where.groups is not None and self.restricted)
+
+    def admitted(
+        self, where: SearchFilter | None
+    ) -> tuple[np.ndarray, faiss.IDSelector] | None:
         """Sorted chunk ids ``where`` admits and a FAISS selector of them; None for all.
 
         Cached per filter for the life of this reader (one generation).
         """
-        if not where.narrows and (where.groups is None or not self.restricted):
+        if where is None or not self._restricts(where):
             return None
         key = where.key
         with self._cache_lock:
@@ -863,23 +862,33 @@ class IndexReader:
 
     def allowed_chunks(self, where: SearchFilter | None) -> np.ndarray | None:
         """Sorted ids of the chunks ``where`` admits; None when it admits every chunk."""
-        entry = None if where is None else self._admitted(where)
+        entry = self.admitted(where)
         return None if entry is None else entry[0]
 
     def selector(self, where: SearchFilter | None) -> faiss.IDSelector | None:
         """A FAISS id selector of the chunks ``where`` admits; None when all are."""
-        entry = None if where is None else self._admitted(where)
+        entry = self.admitted(where)
         return None if entry is None else entry[1]
 
     def visible_counts(self, where: SearchFilter) -> tuple[int, int]:
-        """(documents, chunks) that ``where`` admits."""
+        """(documents, chunks) that ``where`` admits; cached for this generation (the
+        unauthenticated /health asks on every probe)."""
+        with self._cache_lock:
+            cached = self._counts.get(where.key)
+        if cached is not None:
+            return cached
         cond, params = where.sql()
         docs = self._rows(f"SELECT count(*) FROM documents d WHERE {cond}", params)[0][0]
         chunks = self._rows(
             f"SELECT count(*) FROM chunks c JOIN documents d ON d.id = c.document_id WHERE {cond}",
             params,
         )[0][0]
-        return int(docs), int(chunks)
+        counts = (int(docs), int(chunks))
+        with self._cache_lock:
+            if len(self._counts) >= _FILTER_CACHE:
+                self._counts.pop(next(iter(self._counts)))
+            self._counts[where.key] = counts
+        return counts
 
     def collections(self, where: SearchFilter) -> list[tuple[str, int]]:
         """(collection, documents) pairs of the documents ``where`` admits, by name."""

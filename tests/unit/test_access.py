@@ -348,3 +348,26 @@ def test_filter_cache_is_bounded_by_ids_held(wiki, monkeypatch: pytest.MonkeyPat
     # An evicted filter is simply computed again, with the same answer.
     again = reader.allowed_chunks(SearchFilter(modified_after=0.0))
     assert again is not None and len(again) == reader.counts()[1]
+
+
+def test_filtered_dense_search_on_an_ivf_index_fills_k_with_admitted_chunks(
+    tmp_path: Path,
+) -> None:
+    """A narrow filter on an approximate index still returns k admitted passages."""
+    root = tmp_path / "w"
+    words = [f"w{i}" for i in range(200)]
+    pages = {}
+    for i in range(600):
+        body = " ".join(words[(i * p) % 200] for p in (3, 7, 11, 13, 17))
+        head = "" if i % 20 == 0 else "---\ngroups: [hr]\n---\n"  # 30 of 600 readable
+        pages[f"p{i:03d}.md"] = f"{head}# Page {i}\n\npump {body}\n"
+    write(root, pages)
+    settings = IndexSettings(index_dir=tmp_path / "i", vector_index="ivf")
+    embedder = HashingEmbedder(32, seed=9)
+    refresh_index([root], settings, embedder)
+    reader = IndexReader(settings.index_dir)
+    assert reader.manifest.vectors["kind"] == "ivf"
+    hits = Searcher(reader, embedder).search(
+        "pump w3 w7", 10, mode="dense", where=SearchFilter(groups=frozenset()))
+    assert len(hits) == 10
+    assert all(int(h.document_id[1:4]) % 20 == 0 for h in hits)
