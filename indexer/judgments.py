@@ -10,12 +10,12 @@ from __future__ import annotations
 
 import hashlib
 import json
-import sqlite3
 import time
 from dataclasses import dataclass
 from pathlib import Path
 
-from .errors import IndexStoreError, SettingsError
+from .errors import SettingsError
+from .store import open_side_database
 
 FILENAME = "judgments.db"
 GRADES = range(0, 4)  # 0 not relevant … 3 perfectly relevant (TREC-style graded judgments)
@@ -62,14 +62,7 @@ class JudgmentStore:
 
     def __init__(self, path: Path) -> None:
         self.path = Path(path)
-        try:
-            self.path.parent.mkdir(parents=True, exist_ok=True, mode=0o700)
-            self.conn = sqlite3.connect(self.path, check_same_thread=False, isolation_level=None)
-            self.conn.execute("PRAGMA journal_mode=WAL")
-            self.conn.execute("PRAGMA busy_timeout=10000")
-            self.conn.executescript(_SCHEMA)
-        except (OSError, sqlite3.Error) as exc:
-            raise IndexStoreError(f"cannot open judgments file {self.path}: {exc}") from exc
+        self.conn = open_side_database(self.path, _SCHEMA, "judgments file")
 
     def close(self) -> None:
         self.conn.close()

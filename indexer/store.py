@@ -206,6 +206,32 @@ def read_last_run(index_dir: Path) -> dict[str, Any] | None:
     return data if isinstance(data, dict) else None
 
 
+def open_side_database(
+    path: Path, schema: str, what: str, *, owner_only: bool = False
+) -> sqlite3.Connection:
+    """Open (creating) a small SQLite file kept beside an index: judgments, API keys.
+
+    WAL mode, a busy timeout, ``schema`` applied; ``owner_only`` creates the
+    file readable by its owner only before SQLite opens it (SQLite gives its
+    -wal and -shm files the database file's permissions: SQLite unix VFS,
+    robustFchown and findCreateFileMode in os_unix.c). IndexStoreError naming
+    ``what`` when it cannot be opened.
+    """
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True, mode=0o700)
+        if owner_only:
+            os.close(os.open(path, os.O_RDWR | os.O_CREAT, 0o600))
+            if path.stat().st_mode & 0o077:
+                os.chmod(path, 0o600)
+        conn = sqlite3.connect(path, check_same_thread=False, isolation_level=None)
+        conn.execute("PRAGMA journal_mode=WAL")
+        conn.execute("PRAGMA busy_timeout=10000")
+        conn.executescript(schema)
+    except (OSError, sqlite3.Error) as exc:
+        raise IndexStoreError(f"cannot open {what} {path}: {exc}") from exc
+    return conn
+
+
 def check_model(manifest: Manifest, model: dict[str, Any], index_dir: Path) -> None:
     """Raise IndexMismatchError unless ``model`` is the encoder that built the index."""
     built = manifest.model

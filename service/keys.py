@@ -20,7 +20,6 @@ import builtins
 import hashlib
 import hmac
 import json
-import os
 import re
 import secrets
 import sqlite3
@@ -33,6 +32,7 @@ from pathlib import Path
 
 from indexer.access import parse_groups
 from indexer.errors import AccessError, IndexStoreError
+from indexer.store import open_side_database
 
 FILENAME = "keys.db"
 SCOPES = ("read", "write", "admin")  # each includes the ones before it
@@ -160,20 +160,7 @@ class KeyStore:
         self.path = Path(path)
         self._lock = threading.Lock()
         self._verified: OrderedDict[bytes, str] = OrderedDict()  # sha256(secret) -> key id
-        try:
-            self.path.parent.mkdir(parents=True, exist_ok=True, mode=0o700)
-            # Create the file owner-only before SQLite opens it; SQLite gives its -wal and
-            # -shm files the database file's permissions (SQLite unix VFS, robustFchown and
-            # findCreateFileMode in os_unix.c).
-            os.close(os.open(self.path, os.O_RDWR | os.O_CREAT, 0o600))
-            if self.path.stat().st_mode & 0o077:
-                os.chmod(self.path, 0o600)
-            self.conn = sqlite3.connect(self.path, check_same_thread=False, isolation_level=None)
-            self.conn.execute("PRAGMA journal_mode=WAL")
-            self.conn.execute("PRAGMA busy_timeout=10000")
-            self.conn.executescript(_SCHEMA)
-        except (OSError, sqlite3.Error) as exc:
-            raise IndexStoreError(f"cannot open keys file {self.path}: {exc}") from exc
+        self.conn = open_side_database(self.path, _SCHEMA, "keys file", owner_only=True)
 
     def close(self) -> None:
         with self._lock:
