@@ -48,8 +48,10 @@ def parse_groups(value: Any, where: str) -> tuple[str, ...]:
         return ()
     items = value.split(",") if isinstance(value, str) else value
     if not isinstance(items, list | tuple | set | frozenset):
-        raise ValueError(f"{where}: groups must be a list or a comma-separated string, "
-                         f"not {type(value).__name__}")
+        raise ValueError(
+            f"{where}: groups must be a list or a comma-separated string, "
+            f"not {type(value).__name__}"
+        )
     out: set[str] = set()
     for item in items:
         name = str(item).strip() if isinstance(item, str | int) else None
@@ -102,11 +104,13 @@ class AccessRules:
         try:
             data = yaml.safe_load(Path(path).read_text("utf-8"))
         except OSError as exc:
-            raise SettingsError(f"cannot read access rules {path}: {exc.strerror}; "
-                                "fix the setting access_rules") from exc
+            raise SettingsError(
+                f"cannot read access rules {path}: {exc.strerror}; fix the setting access_rules"
+            ) from exc
         except yaml.YAMLError as exc:
-            raise SettingsError(f"access rules {path} are not valid YAML: "
-                                f"{' '.join(str(exc).split())}") from exc
+            raise SettingsError(
+                f"access rules {path} are not valid YAML: {' '.join(str(exc).split())}"
+            ) from exc
         return cls.from_data(data, str(path))
 
     @classmethod
@@ -115,8 +119,9 @@ class AccessRules:
         if data is None:
             return cls()
         if not isinstance(data, dict) or set(data) - {"restrict"}:
-            raise SettingsError(f"{where}: expected a mapping with one key 'restrict' "
-                                "holding a list of rules")
+            raise SettingsError(
+                f"{where}: expected a mapping with one key 'restrict' holding a list of rules"
+            )
         entries = data.get("restrict") or []
         if not isinstance(entries, list):
             raise SettingsError(f"{where}: 'restrict' must be a list of rules")
@@ -124,19 +129,23 @@ class AccessRules:
         for n, entry in enumerate(entries, 1):
             at = f"{where}, rule {n}"
             if not isinstance(entry, dict) or set(entry) - {"under", "groups", "collection"}:
-                raise SettingsError(f"{at}: a rule has the keys under, groups and "
-                                    "optionally collection")
+                raise SettingsError(
+                    f"{at}: a rule has the keys under, groups and optionally collection"
+                )
             under = entry.get("under")
             if not isinstance(under, str):
-                raise SettingsError(f"{at}: 'under' must be a path prefix such as 'hr/' "
-                                    "('' for every document)")
+                raise SettingsError(
+                    f"{at}: 'under' must be a path prefix such as 'hr/' ('' for every document)"
+                )
             try:
                 groups = parse_groups(entry.get("groups"), at)
             except ValueError as exc:
                 raise SettingsError(str(exc)) from exc
             if not groups:
-                raise SettingsError(f"{at}: name at least one group; a document no rule "
-                                    "matches is unrestricted already")
+                raise SettingsError(
+                    f"{at}: name at least one group; a document no rule "
+                    "matches is unrestricted already"
+                )
             coll = entry.get("collection")
             if coll is not None and not isinstance(coll, str):
                 raise SettingsError(f"{at}: 'collection' must be a collection name")

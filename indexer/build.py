@@ -48,8 +48,10 @@ class RefreshReport:
         """One line of counts."""
         tail = ""
         if self.stopped_early:
-            tail = (f"; stopped at the time limit with {self.pending_left} documents left "
-                    "for the next run")
+            tail = (
+                f"; stopped at the time limit with {self.pending_left} documents left "
+                "for the next run"
+            )
         return (
             f"added {len(self.added)}, updated {len(self.updated)}, removed {len(self.removed)}, "
             f"unchanged {self.unchanged}, skipped {len(self.skipped)}; "
@@ -130,16 +132,28 @@ def refresh_index(
     changes nothing and records nothing.
     """
     try:
-        report = _refresh(roots, settings, embedder, rebuild=rebuild, collection=collection,
-                          progress=progress, max_runtime=max_runtime)
+        report = _refresh(
+            roots,
+            settings,
+            embedder,
+            rebuild=rebuild,
+            collection=collection,
+            progress=progress,
+            max_runtime=max_runtime,
+        )
     except IndexLockedError:
         raise
     except SoundingError as exc:
         if settings.index_dir.is_dir():
             write_last_run(settings.index_dir, "failed", str(exc))
         raise
-    write_last_run(settings.index_dir, "ok", report.summary(), generation=report.generation,
-                   seconds=round(report.seconds, 3))
+    write_last_run(
+        settings.index_dir,
+        "ok",
+        report.summary(),
+        generation=report.generation,
+        seconds=round(report.seconds, 3),
+    )
     return report
 
 
@@ -164,10 +178,16 @@ def _refresh(
     report = RefreshReport()
     rules = AccessRules.load(settings.access_rules)
     deadline = None if max_runtime is None else started + max_runtime
-    with IndexLock(settings.index_dir) as lock, IndexWriter(
-        settings.index_dir, describe(embedder), chunking, rebuild=rebuild,
-        vectors=settings.vector_choice,
-    ) as writer:
+    with (
+        IndexLock(settings.index_dir) as lock,
+        IndexWriter(
+            settings.index_dir,
+            describe(embedder),
+            chunking,
+            rebuild=rebuild,
+            vectors=settings.vector_choice,
+        ) as writer,
+    ):
         report.lock_taken_over = lock.took_over is not None
         known = writer.known()
         labels = writer.labels()
@@ -312,9 +332,10 @@ def push_document(
     chunks = chunk_document(doc, embedder.tokenizer, chunking)
     if not chunks:
         raise LoadError("no text")
-    with _locked(settings.index_dir, wait_seconds), IndexWriter(
-        settings.index_dir, describe(embedder), chunking
-    ) as writer:
+    with (
+        _locked(settings.index_dir, wait_seconds),
+        IndexWriter(settings.index_dir, describe(embedder), chunking) as writer,
+    ):
         known = writer.known().get(doc.id)
         if known is not None and known[0] != collection:
             raise SettingsError(
@@ -324,8 +345,9 @@ def push_document(
         if known == (collection, doc.content_hash):
             if writer.labels().get(doc.id) == (groups, tags):
                 manifest = writer.previous
-                return PushReport(doc.id, "unchanged", len(chunks), 0,
-                                  manifest.generation if manifest else 0)
+                return PushReport(
+                    doc.id, "unchanged", len(chunks), 0, manifest.generation if manifest else 0
+                )
             writer.relabel(doc.id, groups, tags)
             manifest = writer.publish()
             return PushReport(doc.id, "updated", len(chunks), 0, manifest.generation)
@@ -334,17 +356,23 @@ def push_document(
         _embed_and_store(writer, embedder, [pending], report)
         manifest = writer.publish()
     # No last-run record: it reports folder runs, and a push must not hide a failed one.
-    return PushReport(doc.id, "added" if known is None else "updated", len(chunks),
-                      report.chunks_embedded, manifest.generation)
+    return PushReport(
+        doc.id,
+        "added" if known is None else "updated",
+        len(chunks),
+        report.chunks_embedded,
+        manifest.generation,
+    )
 
 
 def delete_document(
     settings: IndexSettings, embedder: Embedder, document_id: str, *, wait_seconds: float = 10.0
 ) -> PushReport | None:
     """Remove one document and publish at once; None when it is not in the index."""
-    with _locked(settings.index_dir, wait_seconds), IndexWriter(
-        settings.index_dir, describe(embedder), settings.chunking
-    ) as writer:
+    with (
+        _locked(settings.index_dir, wait_seconds),
+        IndexWriter(settings.index_dir, describe(embedder), settings.chunking) as writer,
+    ):
         if not writer.remove([document_id]):
             return None
         manifest = writer.publish()

@@ -64,8 +64,9 @@ def check_index(index_dir: Path) -> CheckReport:
         ).fetchone()[0]
         if bad_vectors:
             report.problems.append(f"{bad_vectors} chunk rows hold a vector of the wrong size")
-        fts_ids = np.fromiter((r[0] for r in conn.execute("SELECT rowid FROM chunks_fts")),
-                              np.int64)
+        fts_ids = np.fromiter(
+            (r[0] for r in conn.execute("SELECT rowid FROM chunks_fts")), np.int64
+        )
         _compare(report, "lexical (FTS5) index", chunk_ids, fts_ids)
         empty = conn.execute(f"SELECT count(*) {_WITHOUT_CHUNKS}").fetchone()[0]
         if empty:
@@ -83,15 +84,15 @@ def check_index(index_dir: Path) -> CheckReport:
         )
     elif generation < manifest.generation:
         report.problems.append(
-            f"the manifest names generation {manifest.generation}, the database holds "
-            f"{generation}"
+            f"the manifest names generation {manifest.generation}, the database holds {generation}"
         )
     vectors = index_dir / vectors_filename(generation)
     try:
         index = faiss.read_index(str(vectors))
     except RuntimeError:
-        report.problems.append(f"vector file {vectors.name} of generation "
-                               f"{generation} is missing or unreadable")
+        report.problems.append(
+            f"vector file {vectors.name} of generation {generation} is missing or unreadable"
+        )
     else:
         if index.d != dim:
             report.problems.append(f"{vectors.name} has {index.d} dimensions, manifest {dim}")
@@ -106,15 +107,17 @@ def check_index(index_dir: Path) -> CheckReport:
                     f"{manifest.vectors.get('kind')}"
                 )
     if generation == manifest.generation and (manifest.documents, manifest.chunks) != (
-        docs, len(chunk_ids)
+        docs,
+        len(chunk_ids),
     ):
         report.problems.append(
             f"manifest counts {manifest.documents} documents and {manifest.chunks} chunks, "
             f"the database holds {docs} and {len(chunk_ids)}"
         )
     leftovers = sorted(p.name for p in index_dir.glob(".*.tmp"))
-    leftovers += sorted(p.name for p in index_dir.glob("vectors-*.faiss")
-                        if p.name != vectors_filename(generation))
+    leftovers += sorted(
+        p.name for p in index_dir.glob("vectors-*.faiss") if p.name != vectors_filename(generation)
+    )
     if leftovers:
         report.problems.append(f"files left over by an interrupted run: {', '.join(leftovers)}")
     return report
@@ -147,23 +150,24 @@ def repair_index(index_dir: Path, vectors: VectorChoice | None = None) -> CheckR
         return before
     manifest = Manifest.read(index_dir)
     chunking = ChunkSettings(manifest.chunking["max_tokens"], manifest.chunking["overlap"])
-    with IndexLock(index_dir), IndexWriter(
-        index_dir, manifest.model, chunking, vectors=vectors
-    ) as writer:
+    with (
+        IndexLock(index_dir),
+        IndexWriter(index_dir, manifest.model, chunking, vectors=vectors) as writer,
+    ):
         conn = writer.conn
         done: list[str] = []
         empty = [r[0] for r in conn.execute(f"SELECT id {_WITHOUT_CHUNKS}")]
         if empty:
             writer.remove(empty)
-            done.append(f"removed {len(empty)} documents without chunks "
-                        "(the next `sounding index` adds them again)")
+            done.append(
+                f"removed {len(empty)} documents without chunks "
+                "(the next `sounding index` adds them again)"
+            )
         done.append(f"rebuilt the lexical index from {writer.rebuild_lexical()} chunks")
         # Publishing rebuilds the vector file from the chunk rows when it is unusable,
         # and brings a usable one in step; old files and leftovers are removed.
         published = writer.publish()
-        done.append(f"published generation {published.generation} with "
-                    f"{published.chunks} vectors")
+        done.append(f"published generation {published.generation} with {published.chunks} vectors")
     after = check_index(index_dir)
     after.repaired = done
     return after
-

@@ -107,9 +107,7 @@ def _word_starts(text: str, spans: Sequence[tuple[int, int]]) -> list[bool]:
     return starts
 
 
-def window_bounds(
-    starts: Sequence[bool], budget: int, overlap: int
-) -> list[tuple[int, int]]:
+def window_bounds(starts: Sequence[bool], budget: int, overlap: int) -> list[tuple[int, int]]:
     """Token index ranges ``[a, b)`` covering ``len(starts)`` tokens.
 
     Each range holds at most ``budget`` tokens; consecutive ranges share
@@ -197,7 +195,12 @@ def chunk_document(
         title = doc.title.strip()
         title = _trim_to_tokens(title, tokenizer.spans(title), usable)
         chunks.append(
-            Chunk(ordinal=0, trail=(), text=title, embed_text=title,
-                  tokens=len(tokenizer.spans(title)) + SPECIAL_TOKENS)
+            Chunk(
+                ordinal=0,
+                trail=(),
+                text=title,
+                embed_text=title,
+                tokens=len(tokenizer.spans(title)) + SPECIAL_TOKENS,
+            )
         )
     return chunks

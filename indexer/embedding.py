@@ -158,8 +158,11 @@ def choose_precision(requested: str, flags: frozenset[str]) -> Literal["fp32", "
         log.debug("precision auto: fp32, the CPU has none of the flags %s", ", ".join(BF16_FLAGS))
         return "fp32"
     if requested == "bf16" and not flags & BF16_FLAGS:
-        log.warning("precision bf16 asked for, but the CPU has no native bf16 (%s): "
-                    "torch emulates it, slower than fp32", ", ".join(sorted(BF16_FLAGS)))
+        log.warning(
+            "precision bf16 asked for, but the CPU has no native bf16 (%s): "
+            "torch emulates it, slower than fp32",
+            ", ".join(sorted(BF16_FLAGS)),
+        )
     return requested  # type: ignore[return-value]
 
 
@@ -251,8 +254,10 @@ class SentenceTransformerEmbedder:
 
                 torch.set_num_threads(self.threads)
                 model = SentenceTransformer(str(self.path), device="cpu")
-                if self.precision == "bf16" and self.requested_precision == "auto" and not (
-                    torch.ops.mkldnn._is_mkldnn_bf16_supported()
+                if (
+                    self.precision == "bf16"
+                    and self.requested_precision == "auto"
+                    and not (torch.ops.mkldnn._is_mkldnn_bf16_supported())
                 ):
                     log.debug("precision auto: fp32, this torch build has no oneDNN bf16")
                     self.precision = "fp32"
@@ -300,8 +305,13 @@ class SentenceTransformerEmbedder:
     def token_lengths(self, texts: Sequence[str]) -> list[int]:
         """Word pieces each text gives the model: special tokens in, truncated as it truncates."""
         ids = self.model.tokenizer(
-            list(texts), add_special_tokens=True, truncation=True, max_length=self.max_tokens,
-            return_attention_mask=False, return_token_type_ids=False, verbose=False,
+            list(texts),
+            add_special_tokens=True,
+            truncation=True,
+            max_length=self.max_tokens,
+            return_attention_mask=False,
+            return_token_type_ids=False,
+            verbose=False,
         )["input_ids"]
         return [len(i) for i in ids]
 
@@ -375,5 +385,3 @@ def describe(embedder: Embedder) -> dict[str, object]:
         "dimension": embedder.dimension,
         "max_tokens": embedder.max_tokens,
     }
-
-

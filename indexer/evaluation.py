@@ -181,8 +181,7 @@ def evaluate(
         for measure in plain:
             if results and all(measure not in values for values in results.values()):
                 raise SettingsError(
-                    f"measure {measure!r} gives several values; name one cutoff, "
-                    f"e.g. {measure}_10"
+                    f"measure {measure!r} gives several values; name one cutoff, e.g. {measure}_10"
                 )
         for qid, values in results.items():
             for measure in plain:

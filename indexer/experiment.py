@@ -56,8 +56,10 @@ def read_judged(dataset_dir: Path) -> tuple[dict[str, str], dict[str, dict[str, 
     queries = read_queries(dataset_dir / "queries.jsonl")
     judged = {q: t for q, t in queries.items() if q in qrels}
     if not judged:
-        raise SettingsError(f"no query in {dataset_dir / 'queries.jsonl'} has a judgment in "
-                            f"{dataset_dir / 'qrels.tsv'}")
+        raise SettingsError(
+            f"no query in {dataset_dir / 'queries.jsonl'} has a judgment in "
+            f"{dataset_dir / 'qrels.tsv'}"
+        )
     return judged, {q: qrels[q] for q in judged}
 
 

@@ -90,8 +90,11 @@ class Citation:
             crumbs = f"{crumbs}, page {self.page}" if crumbs else f"page {self.page}"
         where = _one_line(self.source)
         if not where.endswith(self.document_id):
-            where = f"{where}; document {_one_line(self.document_id)}" if where else (
-                f"document {_one_line(self.document_id)}")
+            where = (
+                f"{where}; document {_one_line(self.document_id)}"
+                if where
+                else (f"document {_one_line(self.document_id)}")
+            )
         return f"{crumbs} ({where})" if crumbs else where
 
 
@@ -154,8 +157,10 @@ def overlap_length(a: str, b: str) -> int:
     i = a.find(b[0], max(0, len(a) - len(b)))
     while i != -1:
         k = len(a) - i
-        if b.startswith(a[i:]) and _starts_word(a, i) and (
-            _ends_word(b, k) or re.search(r"\s", a[i:])
+        if (
+            b.startswith(a[i:])
+            and _starts_word(a, i)
+            and (_ends_word(b, k) or re.search(r"\s", a[i:]))
         ):
             return k
         i = a.find(b[0], i + 1)
@@ -205,18 +210,28 @@ def _draft(hit: RankedChunk) -> _Draft:
 def _join(a: _Draft, b: _Draft) -> _Draft:
     """``a`` followed by ``b`` (``b.first == a.last + 1``)."""
     return replace(
-        a, last=b.last, chunk_ids=a.chunk_ids + b.chunk_ids,
-        text=join_overlapping(a.text, b.text), score=max(a.score, b.score),
+        a,
+        last=b.last,
+        chunk_ids=a.chunk_ids + b.chunk_ids,
+        text=join_overlapping(a.text, b.text),
+        score=max(a.score, b.score),
     )
 
 
 def _with_hit(drafts: list[_Draft], hit: RankedChunk, cap: int) -> list[_Draft] | None:
     """``drafts`` with ``hit`` joined or appended; None when the cap forbids it."""
     new = _draft(hit)
-    before = next((i for i, d in enumerate(drafts)
-                   if d.key == new.key and d.last + 1 == new.first and not d.truncated), None)
-    after = next((i for i, d in enumerate(drafts)
-                  if d.key == new.key and d.first - 1 == new.last), None)
+    before = next(
+        (
+            i
+            for i, d in enumerate(drafts)
+            if d.key == new.key and d.last + 1 == new.first and not d.truncated
+        ),
+        None,
+    )
+    after = next(
+        (i for i, d in enumerate(drafts) if d.key == new.key and d.first - 1 == new.last), None
+    )
     out = list(drafts)
     if before is not None and after is not None:
         # The hit bridges two passages: one passage, at the better one's place.
@@ -235,8 +250,14 @@ def _with_hit(drafts: list[_Draft], hit: RankedChunk, cap: int) -> list[_Draft] 
 
 def _passages(drafts: Sequence[_Draft]) -> tuple[ContextPassage, ...]:
     return tuple(
-        ContextPassage(number=n, chunk_ids=d.chunk_ids, citation=d.citation, text=d.text,
-                       score=d.score, truncated=d.truncated)
+        ContextPassage(
+            number=n,
+            chunk_ids=d.chunk_ids,
+            citation=d.citation,
+            text=d.text,
+            score=d.score,
+            truncated=d.truncated,
+        )
         for n, d in enumerate(drafts, 1)
     )
 
@@ -248,8 +269,7 @@ def _truncated(hit: RankedChunk, budget: int, count: Counter, min_words: int) ->
     lo, hi, best = min_words, len(ends) - 1, None  # all words did not fit, so at most n-1
 
     def cut(words: int) -> _Draft:
-        return replace(draft, text=draft.text[: ends[words - 1]] + TRUNCATION_MARK,
-                       truncated=True)
+        return replace(draft, text=draft.text[: ends[words - 1]] + TRUNCATION_MARK, truncated=True)
 
     while lo <= hi:  # counts grow with the words kept
         mid = (lo + hi) // 2
@@ -293,7 +313,8 @@ def select_context(
             continue
         # Count only the parts that changed; the sum is checked whole at the end.
         counts = [
-            part_counts[i] if i < len(drafts) and trial[i] is drafts[i]
+            part_counts[i]
+            if i < len(drafts) and trial[i] is drafts[i]
             else count(render_passage(i + 1, d.text, d.citation))
             for i, d in enumerate(trial)
         ]

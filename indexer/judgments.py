@@ -87,8 +87,9 @@ class JudgmentStore:
             "created_at) VALUES (?, ?, ?, ?, ?, ?, ?)",
             [qid, query.strip(), document_id, chunk_id, grade, user, now],
         )
-        return Judgment(int(cur.lastrowid), qid, query.strip(), document_id, chunk_id, grade,
-                        user, now)
+        return Judgment(
+            int(cur.lastrowid), qid, query.strip(), document_id, chunk_id, grade, user, now
+        )
 
     def count(self) -> int:
         return int(self.conn.execute("SELECT count(*) FROM judgments").fetchone()[0])
@@ -120,9 +121,7 @@ class JudgmentStore:
         """
         queries, qrels = self.qrels()
         if not qrels:
-            raise SettingsError(
-                f"no judgments in {self.path} yet; send some with POST /feedback"
-            )
+            raise SettingsError(f"no judgments in {self.path} yet; send some with POST /feedback")
         out_dir = Path(out_dir)
         out_dir.mkdir(parents=True, exist_ok=True)
         with open(out_dir / "queries.jsonl", "w", encoding="utf-8") as fh:

@@ -54,7 +54,8 @@ class IndexLock:
             who = (
                 f"pid {holder.get('pid')} on {holder.get('host')}, started "
                 f"{time.strftime('%Y-%m-%d %H:%M:%S', time.localtime(holder.get('started', 0)))}"
-                if holder else "another process"
+                if holder
+                else "another process"
             )
             raise IndexLockedError(
                 f"index at {self.path.parent} is being updated by another `sounding index` "
@@ -62,14 +63,17 @@ class IndexLock:
             ) from None
         fh.seek(0)
         previous = _read(fh.read())
-        if previous and previous.get("host") == socket.gethostname() and not _pid_alive(
-            int(previous.get("pid", 0))
+        if (
+            previous
+            and previous.get("host") == socket.gethostname()
+            and not _pid_alive(int(previous.get("pid", 0)))
         ):
             self.took_over = previous  # the last holder died mid-run
         fh.seek(0)
         fh.truncate()
-        fh.write(json.dumps({"pid": os.getpid(), "host": socket.gethostname(),
-                             "started": time.time()}))
+        fh.write(
+            json.dumps({"pid": os.getpid(), "host": socket.gethostname(), "started": time.time()})
+        )
         fh.flush()
         self._fh = fh
         return self

@@ -51,8 +51,10 @@ class CrossEncoderReranker:
         if not passages:
             return np.zeros(0, dtype=np.float32)
         scores = self._model.predict(
-            [(query, p) for p in passages], batch_size=self.batch_size,
-            show_progress_bar=False, convert_to_numpy=True,
+            [(query, p) for p in passages],
+            batch_size=self.batch_size,
+            show_progress_bar=False,
+            convert_to_numpy=True,
         )
         return np.asarray(scores, dtype=np.float32).reshape(len(passages), -1)[:, 0]
 

@@ -107,7 +107,10 @@ class Searcher:
     # -- chunk rankings -------------------------------------------------------
 
     def _dense(
-        self, queries: Sequence[str], depth: int, where: SearchFilter | None = None,
+        self,
+        queries: Sequence[str],
+        depth: int,
+        where: SearchFilter | None = None,
         timings: Timings = _UNTIMED,
     ) -> list[list[tuple[int, float]]]:
         admitted = self.reader.admitted(where)
@@ -117,15 +120,19 @@ class Searcher:
         with timings.stage("encode"):
             vectors = self.embedder.encode(list(queries))
         with timings.stage("dense"):
-            D, I = self.reader.search(vectors, depth, selector=selector,
-                                      allowed=None if ids is None else len(ids))
+            D, I = self.reader.search(
+                vectors, depth, selector=selector, allowed=None if ids is None else len(ids)
+            )
         return [
             [(int(i), float(s)) for s, i in zip(d, ids, strict=True) if i >= 0]
             for d, ids in zip(D, I, strict=True)
         ]
 
     def _lexical(
-        self, query: str, depth: int, where: SearchFilter | None = None,
+        self,
+        query: str,
+        depth: int,
+        where: SearchFilter | None = None,
         timings: Timings = _UNTIMED,
     ) -> list[tuple[int, float]]:
         match = fts5_query(query)
@@ -136,7 +143,11 @@ class Searcher:
         return list(zip(ids.tolist(), scores.tolist(), strict=True))
 
     def ranked_chunks(
-        self, query: str, depth: int, mode: Mode, where: SearchFilter | None = None,
+        self,
+        query: str,
+        depth: int,
+        mode: Mode,
+        where: SearchFilter | None = None,
         timings: Timings = _UNTIMED,
     ) -> list[tuple[int, float]]:
         """(chunk id, score) pairs, best first, at most ``depth`` of them.
@@ -186,8 +197,9 @@ class Searcher:
         # Dig deeper than k when passages per document are capped.
         depth = k if max_per_document is None else k * 4 + 32
         if rerank and self.reranker is None:
-            raise QueryError("rerank was asked for but no reranker is configured "
-                             "(setting reranker_path)")
+            raise QueryError(
+                "rerank was asked for but no reranker is configured (setting reranker_path)"
+            )
         use_reranker = self.reranker is not None and rerank is not False
         if use_reranker:
             depth = max(depth, self.rerank_depth)
@@ -286,4 +298,3 @@ class Searcher:
             tiered_fusion([[d for d, _ in a], [d for d, _ in b]], tier, k=self.rrf_k)[:k]
             for a, b in zip(dense, lexical, strict=True)
         ]
-

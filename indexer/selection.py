@@ -39,10 +39,17 @@ class SearchFilter:
         object.__setattr__(self, "groups", groups)
         object.__setattr__(self, "collections", tuple(sorted(set(self.collections))))
         object.__setattr__(self, "tags", tuple(sorted({t.lower() for t in self.tags})))
-        object.__setattr__(self, "_key", (
-            None if groups is None else tuple(sorted(groups)), self.collections, self.tags,
-            self.modified_after, self.source_prefix or None,
-        ))
+        object.__setattr__(
+            self,
+            "_key",
+            (
+                None if groups is None else tuple(sorted(groups)),
+                self.collections,
+                self.tags,
+                self.modified_after,
+                self.source_prefix or None,
+            ),
+        )
 
     @property
     def key(self) -> tuple[Any, ...]:
@@ -52,8 +59,9 @@ class SearchFilter:
     @property
     def narrows(self) -> bool:
         """Whether anything besides access is restricted."""
-        return bool(self.collections or self.tags or self.modified_after is not None
-                    or self.source_prefix)
+        return bool(
+            self.collections or self.tags or self.modified_after is not None or self.source_prefix
+        )
 
     def sql(self) -> tuple[str, list[Any]]:
         """A condition over ``documents d`` and its parameters ("1" when it allows all)."""
@@ -62,8 +70,10 @@ class SearchFilter:
         if self.groups is not None:
             if self.groups:
                 marks = ",".join("?" * len(self.groups))
-                parts.append(f"(d.groups = '[]' OR EXISTS (SELECT 1 FROM json_each(d.groups) "
-                             f"WHERE value IN ({marks})))")
+                parts.append(
+                    f"(d.groups = '[]' OR EXISTS (SELECT 1 FROM json_each(d.groups) "
+                    f"WHERE value IN ({marks})))"
+                )
                 params += sorted(self.groups)
             else:
                 parts.append("d.groups = '[]'")

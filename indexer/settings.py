@@ -69,11 +69,14 @@ class IndexSettings(BaseSettings):
         "below exact_below chunks, ivf from there. Applied at the next `sounding index`.",
     )
     exact_below: int = Field(
-        DEFAULT_EXACT_BELOW, ge=0, description="With vector_index=auto, collections of fewer "
-        "chunks get the exact index.",
+        DEFAULT_EXACT_BELOW,
+        ge=0,
+        description="With vector_index=auto, collections of fewer chunks get the exact index.",
     )
     ivf_nprobe: int | None = Field(
-        None, ge=1, description="IVF cells a query scans; empty means calibrated on the data "
+        None,
+        ge=1,
+        description="IVF cells a query scans; empty means calibrated on the data "
         "when the IVF is built. Applied at the next `sounding index`.",
     )
 
@@ -99,6 +102,8 @@ class IndexSettings(BaseSettings):
         from .embedding import SentenceTransformerEmbedder
 
         return SentenceTransformerEmbedder(
-            self.model_path, batch_size=self.batch_size, precision=self.precision,
+            self.model_path,
+            batch_size=self.batch_size,
+            precision=self.precision,
             threads=self.threads,
         )

@@ -41,8 +41,9 @@ def paired_t_test(a: np.ndarray, b: np.ndarray) -> PairedTest:
     sd = float(d.std(ddof=1))
     if sd == 0.0:
         # No spread: identical systems are not different; a constant shift is.
-        return PairedTest(mean, math.inf if mean else math.nan, 0.0 if mean else 1.0,
-                          "paired t-test")
+        return PairedTest(
+            mean, math.inf if mean else math.nan, 0.0 if mean else 1.0, "paired t-test"
+        )
     t = mean / (sd / math.sqrt(n))
     p = 2.0 * float(stats.t.sf(abs(t), df=n - 1))
     return PairedTest(mean, t, min(p, 1.0), "paired t-test")

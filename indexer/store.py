@@ -235,9 +235,10 @@ def open_side_database(
 def check_model(manifest: Manifest, model: dict[str, Any], index_dir: Path) -> None:
     """Raise IndexMismatchError unless ``model`` is the encoder that built the index."""
     built = manifest.model
-    if built.get("dimension") != model["dimension"] or built.get("fingerprint") != model[
-        "fingerprint"
-    ]:
+    if (
+        built.get("dimension") != model["dimension"]
+        or built.get("fingerprint") != model["fingerprint"]
+    ):
         raise IndexMismatchError(
             f"index at {index_dir} was built with model '{built.get('name')}' "
             f"({built.get('dimension')} dimensions, fingerprint {built.get('fingerprint')}) "
@@ -263,8 +264,9 @@ def check_chunking(manifest: Manifest, chunking: ChunkSettings, index_dir: Path)
 
 def _connect(path: Path, *, readonly: bool) -> sqlite3.Connection:
     if readonly:
-        conn = sqlite3.connect(f"{path.resolve().as_uri()}?mode=ro", uri=True,
-                               check_same_thread=False)
+        conn = sqlite3.connect(
+            f"{path.resolve().as_uri()}?mode=ro", uri=True, check_same_thread=False
+        )
     else:
         conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
         conn.execute("PRAGMA journal_mode=WAL")
@@ -393,9 +395,13 @@ class IndexWriter:
             except RuntimeError:
                 described = self.previous.vectors  # unreadable: the next publish rebuilds it
             self.previous = Manifest(
-                model=self.previous.model, chunking=self.previous.chunking,
-                generation=committed, documents=int(docs), chunks=int(chunks),
-                updated_at=time.time(), vectors=described,
+                model=self.previous.model,
+                chunking=self.previous.chunking,
+                generation=committed,
+                documents=int(docs),
+                chunks=int(chunks),
+                updated_at=time.time(),
+                vectors=described,
             )
             self.previous.write(self.index_dir)
 
@@ -631,8 +637,13 @@ class IndexWriter:
         choice = self.vector_choice
         if index is None or needs_rebuild(index, len(want), choice):
             ids, matrix = _load_vectors(self.conn, self.dimension)
-            plan = plan_vectors(len(ids), self.dimension, kind=choice.kind,
-                                exact_below=choice.exact_below, nprobe=choice.nprobe)
+            plan = plan_vectors(
+                len(ids),
+                self.dimension,
+                kind=choice.kind,
+                exact_below=choice.exact_below,
+                nprobe=choice.nprobe,
+            )
             return build_vectors(plan, ids, matrix)
         if choice.nprobe is not None and isinstance(index, faiss.IndexIVF):
             index.nprobe = min(choice.nprobe, index.nlist)
@@ -760,8 +771,9 @@ class IndexReader:
                 ids, matrix = _load_vectors(conn, self.dimension)
             recorded = VectorPlan.from_json(self.manifest.vectors)
             kind = recorded.kind if recorded.kind in KINDS else "auto"
-            plan = plan_vectors(len(ids), self.dimension, kind=kind,
-                                nprobe=recorded.params.get("nprobe"))
+            plan = plan_vectors(
+                len(ids), self.dimension, kind=kind, nprobe=recorded.params.get("nprobe")
+            )
             self.vectors = build_vectors(plan, ids, matrix)
         if self.vectors.d != self.dimension:
             raise IndexCorruptError(
@@ -801,7 +813,11 @@ class IndexReader:
         return int(docs), int(self.vectors.ntotal)
 
     def search(
-        self, queries: np.ndarray, k: int, *, selector: faiss.IDSelector | None = None,
+        self,
+        queries: np.ndarray,
+        k: int,
+        *,
+        selector: faiss.IDSelector | None = None,
         allowed: int | None = None,
     ) -> tuple[np.ndarray, np.ndarray]:
         """FAISS search: ``D`` scores and ``I`` chunk ids, shape (m, k); -1 pads.
@@ -854,9 +870,7 @@ class IndexReader:
         names the caller's groups and no document is restricted)."""
         return where.narrows or (where.groups is not None and self.restricted)
 
-    def admitted(
-        self, where: SearchFilter | None
-    ) -> tuple[np.ndarray, faiss.IDSelector] | None:
+    def admitted(self, where: SearchFilter | None) -> tuple[np.ndarray, faiss.IDSelector] | None:
         """Sorted chunk ids ``where`` admits and a FAISS selector of them; None for all.
 
         Cached per filter for the life of this reader (one generation).
@@ -872,17 +886,20 @@ class IndexReader:
         cond, params = where.sql()
         rows = self._rows(
             f"SELECT c.id FROM chunks c JOIN documents d ON d.id = c.document_id WHERE {cond} "
-            "ORDER BY c.id", params,
+            "ORDER BY c.id",
+            params,
         )
-        ids = np.ascontiguousarray(np.fromiter((r[0] for r in rows), dtype=np.int64,
-                                                count=len(rows)))
+        ids = np.ascontiguousarray(
+            np.fromiter((r[0] for r in rows), dtype=np.int64, count=len(rows))
+        )
         # FAISS copies the ids into the selector.
         entry = (ids, faiss.IDSelectorBatch(len(ids), faiss.swig_ptr(ids)))
         with self._cache_lock:
             self._allowed[key] = entry
             held = sum(len(e[0]) for e in self._allowed.values())
-            while len(self._allowed) > 1 and (len(self._allowed) > _FILTER_CACHE
-                                              or held > _FILTER_CACHE_IDS):
+            while len(self._allowed) > 1 and (
+                len(self._allowed) > _FILTER_CACHE or held > _FILTER_CACHE_IDS
+            ):
                 held -= len(self._allowed.pop(next(iter(self._allowed)))[0])
         return entry
 
@@ -921,7 +938,8 @@ class IndexReader:
         cond, params = where.sql()
         rows = self._rows(
             f"SELECT d.collection, count(*) FROM documents d WHERE {cond} "
-            "GROUP BY d.collection ORDER BY d.collection", params,
+            "GROUP BY d.collection ORDER BY d.collection",
+            params,
         )
         return [(r[0], int(r[1])) for r in rows]
 

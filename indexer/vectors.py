@@ -114,19 +114,20 @@ def plan_vectors(
     ``nprobe`` None means calibrate it when building.
     """
     if kind not in KINDS:
-        raise SettingsError(
-            f"vector index kind {kind!r} is unknown; use one of {', '.join(KINDS)}"
-        )
+        raise SettingsError(f"vector index kind {kind!r} is unknown; use one of {', '.join(KINDS)}")
     if dimension < 1:
         raise ValueError(f"dimension must be positive, got {dimension}")
     if kind == EXACT or n <= 0 or (kind == "auto" and n < exact_below):
         return VectorPlan(EXACT)
     nlist = _nlist(n)
-    return VectorPlan(IVF, {
-        "nlist": nlist,
-        "quantizer": "SQ8",
-        "nprobe": None if nprobe is None else max(1, min(int(nprobe), nlist)),
-    })
+    return VectorPlan(
+        IVF,
+        {
+            "nlist": nlist,
+            "quantizer": "SQ8",
+            "nprobe": None if nprobe is None else max(1, min(int(nprobe), nlist)),
+        },
+    )
 
 
 def _nlist(n: int) -> int:
@@ -168,8 +169,13 @@ def build_vectors(
     nprobe = plan.params.get("nprobe")
     if nprobe is None:
         nprobe, recall = calibrate_nprobe(index, ids, matrix, seed=seed)
-        log.info("IVF over %d vectors: nlist %d, calibrated nprobe %d (recall@10 %.3f)",
-                 len(ids), nlist, nprobe, recall)
+        log.info(
+            "IVF over %d vectors: nlist %d, calibrated nprobe %d (recall@10 %.3f)",
+            len(ids),
+            nlist,
+            nprobe,
+            recall,
+        )
     index.nprobe = int(min(nprobe, nlist))
     return index
 
@@ -237,8 +243,9 @@ def plan_of(index: faiss.Index) -> VectorPlan:
     quantizer = "flat"
     if isinstance(ivf, faiss.IndexIVFScalarQuantizer):
         quantizer = _SQ_NAMES.get(ivf.sq.qtype, f"SQ-type-{ivf.sq.qtype}")
-    return VectorPlan(IVF, {"nlist": int(ivf.nlist), "quantizer": quantizer,
-                            "nprobe": int(ivf.nprobe)})
+    return VectorPlan(
+        IVF, {"nlist": int(ivf.nlist), "quantizer": quantizer, "nprobe": int(ivf.nprobe)}
+    )
 
 
 def describe_vectors(index: faiss.Index) -> dict[str, Any]:
@@ -259,8 +266,10 @@ def needs_rebuild(index: faiss.Index, n: int, choice: VectorChoice = DEFAULT_CHO
         return True
     if want.kind == IVF:
         ratio = want.params["nlist"] / have.params["nlist"]
-        return (not 1 / NLIST_DRIFT <= ratio <= NLIST_DRIFT
-                or have.params["quantizer"] != want.params["quantizer"])
+        return (
+            not 1 / NLIST_DRIFT <= ratio <= NLIST_DRIFT
+            or have.params["quantizer"] != want.params["quantizer"]
+        )
     return False
 
 

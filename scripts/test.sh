@@ -12,5 +12,6 @@ if [ ! -x /usr/bin/chromium ] || [ ! -x /usr/bin/chromedriver ]; then
         chromium chromium-driver >/dev/null
 fi
 bash scripts/setup.sh
-.venv/bin/ruff check indexer service tests
+.venv/bin/ruff check indexer service sounding tests
+.venv/bin/ruff format --check indexer service sounding tests
 .venv/bin/python -m pytest -ra "$@"

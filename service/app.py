@@ -11,11 +11,10 @@ import faiss
 from fastapi import Depends, FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
-
-from indexer import __version__
-from indexer.embedding import Embedder
-from indexer.errors import QueryError, SoundingError
-from indexer.judgments import JudgmentStore
+from sounding.indexer import __version__
+from sounding.indexer.embedding import Embedder
+from sounding.indexer.errors import QueryError, SoundingError
+from sounding.indexer.judgments import JudgmentStore
 
 from .auth import open_keys, require
 from .engine import Engine
@@ -42,11 +41,16 @@ def create_app(
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         faiss.omp_set_num_threads(settings.search_threads)
-        enc = embedder if embedder is not None else settings.model_copy(
-            update={"threads": settings.query_threads}).embedder()
+        enc = (
+            embedder
+            if embedder is not None
+            else settings.model_copy(update={"threads": settings.query_threads}).embedder()
+        )
         enc.encode(["warm-up"])  # load weights now, not on the first user's query
         app.state.engine = Engine(
-            settings.index_dir, enc, settings.searcher_factory(enc),
+            settings.index_dir,
+            enc,
+            settings.searcher_factory(enc),
             settings.reload_check_seconds,
         )
         app.state.judgments = JudgmentStore(settings.judgments_file)
@@ -107,8 +111,9 @@ def create_app(
     @app.exception_handler(Exception)
     async def unexpected(request: Request, exc: Exception) -> JSONResponse:
         # A bug, not a bad request: the traceback goes to the log, never to the client.
-        log.error("unexpected error answering %s %s", request.method, request.url.path,
-                  exc_info=exc)
+        log.error(
+            "unexpected error answering %s %s", request.method, request.url.path, exc_info=exc
+        )
         return JSONResponse(status_code=500, content={"detail": INTERNAL_ERROR})
 
     return app

@@ -27,8 +27,7 @@ from typing import Annotated
 
 from fastapi import Depends, Header, HTTPException, Request
 from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
-
-from indexer.errors import AccessError
+from sounding.indexer.errors import AccessError
 
 from .keys import SCOPES, KeyStore, check_groups, scope_rank
 from .settings import ServiceSettings
@@ -71,13 +70,16 @@ ANONYMOUS = Caller(name="anonymous", scope=SCOPES[-1], groups=frozenset())
 # Declared so that the OpenAPI schema (and viewers' "Authorize" buttons) show the scheme; the
 # header itself is parsed below, to give each refusal its own reason.
 _bearer = HTTPBearer(
-    auto_error=False, scheme_name="APIKey", bearerFormat="snd_<id>_<secret>",
+    auto_error=False,
+    scheme_name="APIKey",
+    bearerFormat="snd_<id>_<secret>",
     description="An API key from `sounding keys create`.",
 )
 
 
-def _challenge(error: str | None = None, description: str | None = None,
-               scope: str | None = None) -> dict[str, str]:
+def _challenge(
+    error: str | None = None, description: str | None = None, scope: str | None = None
+) -> dict[str, str]:
     params = [f'realm="{REALM}"']
     if error:
         params.append(f'error="{error}"')
@@ -92,15 +94,17 @@ def _challenge(error: str | None = None, description: str | None = None,
 
 def _refuse(reason: str, error: str | None = "invalid_token") -> HTTPException:
     # A request with no credentials gets a bare challenge (RFC 6750 section 3.1).
-    return HTTPException(status_code=401, detail=reason,
-                         headers=_challenge(error, reason if error else None))
+    return HTTPException(
+        status_code=401, detail=reason, headers=_challenge(error, reason if error else None)
+    )
 
 
 def _one_header(request: Request, name: str) -> str | None:
     values = request.headers.getlist(name)
     if len(values) > 1:
-        raise HTTPException(status_code=400, detail=f"send the {name} header once, "
-                            f"not {len(values)} times")
+        raise HTTPException(
+            status_code=400, detail=f"send the {name} header once, not {len(values)} times"
+        )
     return values[0] if values else None
 
 
@@ -128,7 +132,8 @@ def authenticate(
         if settings.require_keys:
             raise _refuse(
                 "no API key: send 'Authorization: Bearer <key>'; an administrator creates "
-                "keys with `sounding keys create`", error=None,
+                "keys with `sounding keys create`",
+                error=None,
             )
         caller = ANONYMOUS
     else:
@@ -142,8 +147,9 @@ def authenticate(
             key = store.authenticate(secret.strip())
         except AccessError as exc:
             raise _refuse(str(exc)) from None
-        caller = Caller(name=key.name, scope=key.scope, groups=key.groups,
-                        act_for=key.act_for, key_id=key.id)
+        caller = Caller(
+            name=key.name, scope=key.scope, groups=key.groups, act_for=key.act_for, key_id=key.id
+        )
 
     on_behalf = _one_header(request, ON_BEHALF_HEADER)
     if on_behalf is not None:
@@ -179,10 +185,13 @@ def require(scope: str) -> Callable[..., Caller]:
 
     async def dependency(caller: Annotated[Caller, Depends(authenticate)]) -> Caller:
         if not caller.may(scope):
-            reason = (f"{'the anonymous caller' if caller.anonymous else repr(caller.name)} "
-                      f"has scope {caller.scope!r}; this needs scope {scope!r}")
+            reason = (
+                f"{'the anonymous caller' if caller.anonymous else repr(caller.name)} "
+                f"has scope {caller.scope!r}; this needs scope {scope!r}"
+            )
             raise HTTPException(
-                status_code=403, detail=reason,
+                status_code=403,
+                detail=reason,
                 headers=_challenge("insufficient_scope", reason, scope),
             )
         return caller
@@ -204,7 +213,8 @@ def open_keys(settings: ServiceSettings) -> KeyStore:
             "API keys are OFF (require_keys=false): any program or user on this machine that "
             "can connect to %s:%d is served as 'anonymous' with every scope, seeing the "
             "unrestricted documents; set SOUNDING_REQUIRE_KEYS=true to require keys",
-            settings.host, settings.port,
+            settings.host,
+            settings.port,
         )
     elif not store.list(include_revoked=False):
         log.warning(

@@ -5,8 +5,7 @@ from __future__ import annotations
 from typing import Annotated
 
 from fastapi import Depends, HTTPException, Request
-
-from indexer.search import Searcher
+from sounding.indexer.search import Searcher
 
 from .engine import Engine
 from .settings import ServiceSettings

@@ -8,10 +8,10 @@ import time
 from collections.abc import Callable
 from pathlib import Path
 
-from indexer.embedding import Embedder
-from indexer.errors import SoundingError
-from indexer.search import Searcher
-from indexer.store import MANIFEST, IndexReader
+from sounding.indexer.embedding import Embedder
+from sounding.indexer.errors import SoundingError
+from sounding.indexer.search import Searcher
+from sounding.indexer.store import MANIFEST, IndexReader
 
 log = logging.getLogger("sounding.service")
 
@@ -69,7 +69,9 @@ class Engine:
         docs, chunks = searcher.reader.counts()
         log.info(
             "index generation %s loaded: %s documents, %s chunks",
-            searcher.reader.generation, docs, chunks,
+            searcher.reader.generation,
+            docs,
+            chunks,
         )
         # The old reader's snapshot ends when the last request using it lets go
         # (IndexReader.__del__), so requests in flight finish on their generation.

@@ -6,9 +6,8 @@ from datetime import datetime, timezone
 
 from fastapi import HTTPException
 from pydantic import BaseModel, Field
-
-from indexer.search import SearchFilter
-from indexer.store import DocumentRecord
+from sounding.indexer.search import SearchFilter
+from sounding.indexer.store import DocumentRecord
 
 from .auth import Caller
 
@@ -22,15 +21,20 @@ class FilterFields(BaseModel):
         None, max_length=50, description="Only these collections (any of them)."
     )
     tags: list[str] | None = Field(
-        None, max_length=50, description="Only documents with at least one of these tags "
-        "(case-insensitive)."
+        None,
+        max_length=50,
+        description="Only documents with at least one of these tags (case-insensitive).",
     )
     modified_after: datetime | None = Field(
-        None, description="Only documents modified after this time: ISO 8601 "
-        "(e.g. 2026-01-31T00:00:00Z) or Unix seconds."
+        None,
+        description="Only documents modified after this time: ISO 8601 "
+        "(e.g. 2026-01-31T00:00:00Z) or Unix seconds.",
     )
     source_prefix: str | None = Field(
-        None, min_length=1, max_length=1000, pattern=_NAME,
+        None,
+        min_length=1,
+        max_length=1000,
+        pattern=_NAME,
         description="Only documents whose source path, or id (path in the indexed folder), "
         "starts with this (case-sensitive).",
     )
@@ -70,6 +74,7 @@ def check_query_length(query: str, max_chars: int) -> None:
     """422 naming the limit when ``query`` is longer than ``max_chars`` (max_query_chars)."""
     if len(query) > max_chars:
         raise HTTPException(
-            422, f"query is {len(query)} characters, over the limit of {max_chars} "
+            422,
+            f"query is {len(query)} characters, over the limit of {max_chars} "
             "(setting max_query_chars)",
         )

@@ -30,9 +30,9 @@ from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
 
-from indexer.access import parse_groups
-from indexer.errors import AccessError, IndexStoreError
-from indexer.store import open_side_database
+from sounding.indexer.access import parse_groups
+from sounding.indexer.errors import AccessError, IndexStoreError
+from sounding.indexer.store import open_side_database
 
 FILENAME = "keys.db"
 SCOPES = ("read", "write", "admin")  # each includes the ones before it
@@ -82,9 +82,7 @@ def scope_rank(scope: str) -> int:
     try:
         return SCOPES.index(scope)
     except ValueError:
-        raise AccessError(
-            f"unknown scope {scope!r}; use one of {', '.join(SCOPES)}"
-        ) from None
+        raise AccessError(f"unknown scope {scope!r}; use one of {', '.join(SCOPES)}") from None
 
 
 def check_groups(groups: str | Iterable[str] | None, where: str = "groups") -> frozenset[str]:
@@ -103,11 +101,17 @@ def check_groups(groups: str | Iterable[str] | None, where: str = "groups") -> f
     return frozenset(names)
 
 
-def scrypt(secret: str, salt: bytes, n: int = SCRYPT_N, r: int = SCRYPT_R, p: int = SCRYPT_P
-           ) -> bytes:
+def scrypt(
+    secret: str, salt: bytes, n: int = SCRYPT_N, r: int = SCRYPT_R, p: int = SCRYPT_P
+) -> bytes:
     """The stored form of a secret."""
     return hashlib.scrypt(
-        secret.encode("utf-8"), salt=salt, n=n, r=r, p=p, dklen=SCRYPT_DKLEN,
+        secret.encode("utf-8"),
+        salt=salt,
+        n=n,
+        r=r,
+        p=p,
+        dklen=SCRYPT_DKLEN,
         maxmem=256 * r * n,  # twice the 128*r*N scrypt needs; OpenSSL's default is 32 MiB
     )
 
@@ -136,8 +140,11 @@ class KeyRecord:
 
     def to_json(self) -> dict:
         return {
-            "id": self.id, "name": self.name, "scope": self.scope,
-            "groups": sorted(self.groups), "act_for": self.act_for,
+            "id": self.id,
+            "name": self.name,
+            "scope": self.scope,
+            "groups": sorted(self.groups),
+            "act_for": self.act_for,
             "created_at": _iso(self.created_at),
             "revoked_at": _iso(self.revoked_at) if self.revoked_at is not None else None,
         }
@@ -149,8 +156,9 @@ def _iso(t: float) -> str:
 
 def _record(row: tuple) -> KeyRecord:
     id_, name, scope, groups, act_for, created_at, revoked_at = row
-    return KeyRecord(id_, name, scope, frozenset(json.loads(groups)), bool(act_for),
-                     created_at, revoked_at)
+    return KeyRecord(
+        id_, name, scope, frozenset(json.loads(groups)), bool(act_for), created_at, revoked_at
+    )
 
 
 class KeyStore:
@@ -197,8 +205,19 @@ class KeyStore:
                 self.conn.execute(
                     "INSERT INTO keys (id, name, scope, groups, act_for, salt, hash, scrypt_n, "
                     "scrypt_r, scrypt_p, created_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                    (key_id, name, scope, json.dumps(sorted(group_set)), int(record.act_for),
-                     salt, digest, SCRYPT_N, SCRYPT_R, SCRYPT_P, record.created_at),
+                    (
+                        key_id,
+                        name,
+                        scope,
+                        json.dumps(sorted(group_set)),
+                        int(record.act_for),
+                        salt,
+                        digest,
+                        SCRYPT_N,
+                        SCRYPT_R,
+                        SCRYPT_P,
+                        record.created_at,
+                    ),
                 )
             except sqlite3.IntegrityError as exc:
                 raise AccessError(
@@ -223,7 +242,8 @@ class KeyStore:
         with self._lock:
             row = self.conn.execute(
                 f"SELECT {_COLUMNS} FROM keys WHERE id = ? OR (name = ? AND revoked_at IS NULL) "
-                "ORDER BY id = ? DESC LIMIT 1", (name_or_id, name_or_id, name_or_id),
+                "ORDER BY id = ? DESC LIMIT 1",
+                (name_or_id, name_or_id, name_or_id),
             ).fetchone()
             if row is None:
                 was = self.conn.execute(
@@ -241,8 +261,15 @@ class KeyStore:
             self.conn.execute("UPDATE keys SET revoked_at = ? WHERE id = ?", (now, record.id))
             for digest in [d for d, k in self._verified.items() if k == record.id]:
                 del self._verified[digest]
-        return KeyRecord(record.id, record.name, record.scope, record.groups, record.act_for,
-                         record.created_at, now)
+        return KeyRecord(
+            record.id,
+            record.name,
+            record.scope,
+            record.groups,
+            record.act_for,
+            record.created_at,
+            now,
+        )
 
     def authenticate(self, secret: str) -> KeyRecord:
         """The live key whose secret this is, or AccessError saying why not.
@@ -256,7 +283,8 @@ class KeyStore:
         with self._lock:
             row = self.conn.execute(
                 f"SELECT {_COLUMNS}, salt, hash, scrypt_n, scrypt_r, scrypt_p FROM keys "
-                "WHERE id = ?", (key_id,),
+                "WHERE id = ?",
+                (key_id,),
             ).fetchone()
         if row is None:
             raise AccessError("key not recognised: unknown id or wrong secret")

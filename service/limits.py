@@ -73,14 +73,18 @@ class RequestLimits:
             n = len(path) - len(DOCUMENTS_PREFIX)
             if n > MAX_DOCUMENT_ID_CHARS:
                 await _error(
-                    send, 414,
+                    send,
+                    414,
                     f"document id is {n} characters, over the limit of {MAX_DOCUMENT_ID_CHARS}",
                 )
                 return
         headers = _headers(scope)
         upload = scope.get("method") == "PUT" and path.startswith(DOCUMENTS_PREFIX)
-        limit, setting = ((self.max_upload_bytes, "max_upload_bytes") if upload
-                          else (self.max_body_bytes, "max_body_bytes"))
+        limit, setting = (
+            (self.max_upload_bytes, "max_upload_bytes")
+            if upload
+            else (self.max_body_bytes, "max_body_bytes")
+        )
         declared = headers.get("content-length")
         if declared is not None and declared.isdigit() and int(declared) > limit:
             await _error(send, 413, _too_large(f"is {int(declared)} bytes,", limit, setting))
@@ -211,9 +215,7 @@ def _string_problem(text: str, where: str) -> str | None:
 
 
 def _headers(scope: Scope) -> dict[str, str]:
-    return {
-        k.decode("latin-1").lower(): v.decode("latin-1") for k, v in scope.get("headers", ())
-    }
+    return {k.decode("latin-1").lower(): v.decode("latin-1") for k, v in scope.get("headers", ())}
 
 
 def _is_json(content_type: str | None) -> bool:

@@ -103,15 +103,13 @@ def log_config(level: str = "info", fmt: Literal["json", "text"] = "json") -> di
     writes the access lines instead, one per request, on ``sounding.access``.
     """
     formatter: dict[str, Any] = (
-        {"()": "service.logs.JsonFormatter"}
-        if fmt == "json"
-        else {"format": TEXT_FORMAT}
+        {"()": "sounding.service.logs.JsonFormatter"} if fmt == "json" else {"format": TEXT_FORMAT}
     )
     handler = ["stderr"]
     return {
         "version": 1,
         "disable_existing_loggers": False,
-        "filters": {"request_id": {"()": "service.logs.RequestIdFilter"}},
+        "filters": {"request_id": {"()": "sounding.service.logs.RequestIdFilter"}},
         "formatters": {"main": formatter},
         "handlers": {
             "stderr": {

@@ -34,9 +34,9 @@ try:
 except ImportError:  # older FastAPI: included routes are in app.routes already
     _iter_route_contexts = None
 
-from indexer import __version__
-from indexer.search import Searcher
-from indexer.store import read_last_run
+from sounding.indexer import __version__
+from sounding.indexer.search import Searcher
+from sounding.indexer.store import read_last_run
 
 from .limits import ASGIApp, Message, Receive, Scope, Send
 from .logs import ACCESS_LOGGER, REQUEST_ID_HEADER, accept_request_id, request_id_var
@@ -82,7 +82,7 @@ def route_template(scope: Scope) -> str:
     path = scope.get("path", "")
     root = scope.get("root_path", "")
     if root and path.startswith(root):
-        path = path[len(root):]
+        path = path[len(root) :]
     method = scope.get("method")
     partial = None
     for regex, template, methods in _templates(scope.get("app")):
@@ -128,10 +128,16 @@ class _IndexCollector(Collector):
             for name, doc, value in (
                 ("sounding_index_documents", "Documents in the served generation.", docs),
                 ("sounding_index_chunks", "Chunks (passages) in the served generation.", chunks),
-                ("sounding_index_generation", "Number of the served index generation.",
-                 reader.generation),
-                ("sounding_index_updated_timestamp_seconds",
-                 "Unix time the served generation was published.", reader.manifest.updated_at),
+                (
+                    "sounding_index_generation",
+                    "Number of the served index generation.",
+                    reader.generation,
+                ),
+                (
+                    "sounding_index_updated_timestamp_seconds",
+                    "Unix time the served generation was published.",
+                    reader.manifest.updated_at,
+                ),
             ):
                 family = GaugeMetricFamily(name, doc)
                 family.add_metric([], float(value))
@@ -174,15 +180,18 @@ class ServiceMetrics:
     def __init__(self, index_dir: Path) -> None:
         self.registry = CollectorRegistry()
         self.requests = Counter(
-            "sounding_http_requests", "HTTP requests answered, by route template, method, "
-            "ranking mode and status code.", ("route", "method", "mode", "status"),
+            "sounding_http_requests",
+            "HTTP requests answered, by route template, method, ranking mode and status code.",
+            ("route", "method", "mode", "status"),
             registry=self.registry,
         )
         self.latency = Histogram(
             "sounding_http_request_duration_seconds",
             "Time from a request's arrival to the end of its answer, by route template, "
-            "method and ranking mode.", ("route", "method", "mode"),
-            buckets=BUCKETS, registry=self.registry,
+            "method and ranking mode.",
+            ("route", "method", "mode"),
+            buckets=BUCKETS,
+            registry=self.registry,
         )
         build = InfoMetricFamily("sounding_build", "Version of sounding serving.")
         build.add_metric([], {"version": __version__})
@@ -257,7 +266,8 @@ class RequestObserver:
                 response_started = True
                 status = int(message["status"])
                 headers = [
-                    (k, v) for k, v in message.get("headers", ())
+                    (k, v)
+                    for k, v in message.get("headers", ())
                     if k.lower() != REQUEST_ID_HEADER.encode()
                 ]
                 headers.append((REQUEST_ID_HEADER.encode(), request_id.encode("ascii")))
@@ -281,9 +291,18 @@ class RequestObserver:
             # Route template and status only: never the path or query string (see
             # service/logs.py: queries can be personal data, ids can name pages).
             access_log.info(
-                "%s %s %s", method, route, status,
-                extra={"method": method, "route": route, "mode": mode, "status": status,
-                       "duration_ms": round(seconds * 1000, 3), "request_id": request_id},
+                "%s %s %s",
+                method,
+                route,
+                status,
+                extra={
+                    "method": method,
+                    "route": route,
+                    "mode": mode,
+                    "status": status,
+                    "duration_ms": round(seconds * 1000, 3),
+                    "request_id": request_id,
+                },
             )
 
 

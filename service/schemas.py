@@ -122,20 +122,31 @@ class PushRequest(BaseModel):
 
     text: str = Field(..., min_length=1, description="The document's content, in `format`.")
     format: DocumentFormat = Field("markdown", description="How to read `text`.")
-    title: str | None = Field(None, min_length=1, max_length=500,
-                              description="Title; by default from the text (front matter, H1).")
+    title: str | None = Field(
+        None,
+        min_length=1,
+        max_length=500,
+        description="Title; by default from the text (front matter, H1).",
+    )
     collection: str | None = Field(
-        None, min_length=1, max_length=200, pattern=r"^[^\x00-\x1f/]+$",
-        description="Collection; by default the push_collection setting ('pushed')."
+        None,
+        min_length=1,
+        max_length=200,
+        pattern=r"^[^\x00-\x1f/]+$",
+        description="Collection; by default the push_collection setting ('pushed').",
     )
     groups: list[str] | None = Field(
-        None, max_length=100, description="Groups that may read it; by default from the front "
-        "matter or the access rules, else unrestricted. [] makes it unrestricted."
+        None,
+        max_length=100,
+        description="Groups that may read it; by default from the front "
+        "matter or the access rules, else unrestricted. [] makes it unrestricted.",
     )
     tags: list[str] | None = Field(None, max_length=100, description="Tags for filtering.")
     source: str | None = Field(
-        None, min_length=1, max_length=2000,
-        description="Where the document lives (its wiki URL, say); shown with citations."
+        None,
+        min_length=1,
+        max_length=2000,
+        description="Where the document lives (its wiki URL, say); shown with citations.",
     )
     modified: float | None = Field(
         None, ge=0, le=1e11, description="Modification time, Unix seconds; by default now."
@@ -178,7 +189,8 @@ class ContextRequest(FilterFields):
 
     query: str = Field(..., min_length=1, description="What the passages should answer.")
     budget: int = Field(
-        1000, ge=1,
+        1000,
+        ge=1,
         description="Most tokens (or characters, with unit=chars) the whole text block may "
         "take: passages, numbers, citations and blank lines. At most the max_context_tokens "
         "(or max_context_chars) setting.",
@@ -187,8 +199,11 @@ class ContextRequest(FilterFields):
         "tokens", description="tokens: word pieces of the encoder's tokenizer; chars: characters."
     )
     max_per_document: int = Field(
-        2, ge=1, le=20, description="Most passages from any one document (adjacent windows "
-        "joined into one passage count once)."
+        2,
+        ge=1,
+        le=20,
+        description="Most passages from any one document (adjacent windows "
+        "joined into one passage count once).",
     )
     mode: Literal["dense", "lexical", "hybrid"] = Field(
         "hybrid", description="Ranking, as for /search."
@@ -211,9 +226,7 @@ class ContextPassageOut(BaseModel):
     text: str
     citation: str = Field(description="The citation as written in text after 'Source: '.")
     score: float = Field(description="Best score of its chunks (as /search scores them).")
-    truncated: bool = Field(
-        False, description="Cut at a word to fit the budget (ends with ' …')."
-    )
+    truncated: bool = Field(False, description="Cut at a word to fit the budget (ends with ' …').")
 
 
 class ContextResponse(BaseModel):

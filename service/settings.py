@@ -7,9 +7,8 @@ from pathlib import Path
 from typing import Literal
 
 from pydantic import Field
-
-from indexer.errors import SettingsError
-from indexer.settings import IndexSettings
+from sounding.indexer.errors import SettingsError
+from sounding.indexer.settings import IndexSettings
 
 
 class ServiceSettings(IndexSettings):
@@ -48,26 +47,37 @@ class ServiceSettings(IndexSettings):
         64 * 1024, ge=1, description="Largest request body accepted, in bytes; larger is a 413."
     )
     search_threads: int = Field(
-        1, ge=1, le=256, description="FAISS threads per query. One: requests already run in "
+        1,
+        ge=1,
+        le=256,
+        description="FAISS threads per query. One: requests already run in "
         "parallel, and more threads per query made single queries several times slower on a "
-        "busy 2-core machine (tests/bench/vectors.py)."
+        "busy 2-core machine (tests/bench/vectors.py).",
     )
     query_threads: int = Field(
-        1, ge=1, le=256, description="Torch threads of the service's encoder (queries, pushes). "
+        1,
+        ge=1,
+        le=256,
+        description="Torch threads of the service's encoder (queries, pushes). "
         "One: with a nightly re-index using every core beside it, a query's encoding took "
-        "400 ms at two threads and 10 ms at one (tests/bench/encode.py on 2 cores)."
+        "400 ms at two threads and 10 ms at one (tests/bench/encode.py on 2 cores).",
     )
     max_upload_bytes: int = Field(
         20 * 2**20, ge=1, description="Largest document accepted by PUT /documents/{id}, in bytes."
     )
     push_collection: str = Field(
-        "pushed", min_length=1, description="Collection of documents pushed with PUT "
+        "pushed",
+        min_length=1,
+        description="Collection of documents pushed with PUT "
         "/documents/{id} that name none. Keep it apart from the folders' collections: a folder "
-        "run removes documents of its collection that are not in the folder."
+        "run removes documents of its collection that are not in the folder.",
     )
     push_wait_seconds: float = Field(
-        10.0, ge=0, le=600, description="How long a push waits for a running re-index before "
-        "answering 503 with Retry-After."
+        10.0,
+        ge=0,
+        le=600,
+        description="How long a push waits for a running re-index before "
+        "answering 503 with Retry-After.",
     )
     max_json_depth: int = Field(
         32, ge=1, le=1000, description="Deepest nesting of a JSON body accepted; deeper is a 422."
@@ -111,7 +121,7 @@ class ServiceSettings(IndexSettings):
         """Load the configured cross-encoder, or None when none is configured."""
         if self.reranker_path is None:
             return None
-        from indexer.rerank import CrossEncoderReranker
+        from sounding.indexer.rerank import CrossEncoderReranker
 
         return CrossEncoderReranker(self.reranker_path, batch_size=self.batch_size)
 
@@ -120,12 +130,17 @@ class ServiceSettings(IndexSettings):
 
         The reranker, if configured, loads once here and serves every searcher.
         """
-        from indexer.search import Searcher
+        from sounding.indexer.search import Searcher
 
         reranker = self.reranker()
 
         def make(reader):
-            return Searcher(reader, embedder, rrf_k=self.rrf_k, reranker=reranker,
-                            rerank_depth=self.rerank_depth)
+            return Searcher(
+                reader,
+                embedder,
+                rrf_k=self.rrf_k,
+                reranker=reranker,
+                rerank_depth=self.rerank_depth,
+            )
 
         return make

@@ -6,8 +6,7 @@ import os
 from pathlib import Path
 
 import pytest
-
-from indexer.embedding import HashingEmbedder
+from sounding.indexer.embedding import HashingEmbedder
 
 REPO = Path(__file__).resolve().parent.parent
 DEMO_CORPUS = REPO / "demo_corpus"
@@ -21,7 +20,7 @@ BENCHMARKS_DIR = Path(
 @pytest.fixture(scope="session")
 def real_embedder():
     """The bundled all-MiniLM-L6-v2, loaded once per test session."""
-    from indexer.embedding import SentenceTransformerEmbedder
+    from sounding.indexer.embedding import SentenceTransformerEmbedder
 
     return SentenceTransformerEmbedder(batch_size=64)
 

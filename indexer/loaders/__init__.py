@@ -156,8 +156,9 @@ def _walk(folder: Path, parts: tuple[str, ...], limit: int) -> Iterator[Document
                 elif not os.path.realpath(entry.path).startswith(root_real + os.sep):
                     # A link out of the exported tree could expose any file the
                     # indexer's user can read; only the tree's own files count.
-                    yield Skipped(rel, "symbolic link to a file outside the indexed folder; "
-                                       "not followed")
+                    yield Skipped(
+                        rel, "symbolic link to a file outside the indexed folder; not followed"
+                    )
                 elif stat.S_ISREG(st.st_mode):
                     yield from _load_entry(path, rel, st, limit)
                 else:
@@ -256,15 +257,18 @@ def _corpus_documents(path: Path, rel: str, st: os.stat_result) -> list[Document
             first_problem = item
     if not docs:
         assert first_problem is not None  # iter_corpus raises when there are no records
-        raise LoadError(f"no valid records (line {first_problem.path.rsplit(':', 1)[-1]}: "
-                        f"{first_problem.reason})")
+        raise LoadError(
+            f"no valid records (line {first_problem.path.rsplit(':', 1)[-1]}: "
+            f"{first_problem.reason})"
+        )
     return docs
 
 
 def _document(path: Path, doc_id: str, kind: str, data: bytes, modified: float) -> Document:
     """Parse the bytes of a non-corpus file into a Document; LoadError if unusable."""
-    return parse_document(data, kind, doc_id=doc_id, name=path.name,
-                          source=os.path.abspath(path), modified=modified)
+    return parse_document(
+        data, kind, doc_id=doc_id, name=path.name, source=os.path.abspath(path), modified=modified
+    )
 
 
 def parse_document(

@@ -26,9 +26,7 @@ BINARY = "binary content in a text file"
 _RESERVED = ("_id", "title", "text", "metadata")
 
 
-def iter_corpus(
-    path: Path, rel: str, source: str, modified: float
-) -> Iterator[Document | Skipped]:
+def iter_corpus(path: Path, rel: str, source: str, modified: float) -> Iterator[Document | Skipped]:
     """Documents of a corpus file, and a ``Skipped("rel:line", reason)`` per bad line.
 
     Raises LoadError when the file as a whole cannot be used (binary, corrupt
@@ -62,9 +60,7 @@ def _open(path: Path, gz: bool) -> IO[bytes]:
     return gzip.open(path, "rb") if gz else path.open("rb")
 
 
-def _record(
-    line: bytes, lineno: int, rel: str, source: str, modified: float
-) -> Document | Skipped:
+def _record(line: bytes, lineno: int, rel: str, source: str, modified: float) -> Document | Skipped:
     """One corpus line as a Document, or as a Skipped naming the line and the problem."""
     where = f"{rel}:{lineno}"
     warnings: list[str] = []

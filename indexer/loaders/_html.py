@@ -16,30 +16,74 @@ NO_MARKUP = "not HTML: no markup found"
 # Elements whose content is never page text (chrome, code, embedded objects).
 DROPPED = frozenset(
     {
-        "script", "style", "noscript", "template", "svg", "nav", "header", "footer", "aside",
-        "form", "iframe"
+        "script",
+        "style",
+        "noscript",
+        "template",
+        "svg",
+        "nav",
+        "header",
+        "footer",
+        "aside",
+        "form",
+        "iframe",
     }
 )
 # A <header>/<footer> inside these is the article's own (title, byline), not site chrome.
 CONTENT_ROOTS = frozenset({"main", "article"})
 VOID = frozenset(
     {
-        "area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "param",
-        "source", "track", "wbr"
+        "area",
+        "base",
+        "br",
+        "col",
+        "embed",
+        "hr",
+        "img",
+        "input",
+        "link",
+        "meta",
+        "param",
+        "source",
+        "track",
+        "wbr",
     }
 )
 HEADINGS = {f"h{n}": n for n in range(1, 7)}
 # Blocks that end a paragraph (blank line) versus those that only end a line.
 PARAGRAPH_BLOCKS = frozenset(
     {
-        "p", "pre", "blockquote", "table", "ul", "ol", "dl", "section", "article", "main",
-        "figure", "details", "hr"
+        "p",
+        "pre",
+        "blockquote",
+        "table",
+        "ul",
+        "ol",
+        "dl",
+        "section",
+        "article",
+        "main",
+        "figure",
+        "details",
+        "hr",
     }
 ) | frozenset(HEADINGS)
 LINE_BLOCKS = frozenset(
     {
-        "div", "li", "tr", "dd", "dt", "br", "address", "caption", "figcaption", "summary",
-        "fieldset", "body", "html", "center"
+        "div",
+        "li",
+        "tr",
+        "dd",
+        "dt",
+        "br",
+        "address",
+        "caption",
+        "figcaption",
+        "summary",
+        "fieldset",
+        "body",
+        "html",
+        "center",
     }
 )
 _SPACES = re.compile(r"\s+")

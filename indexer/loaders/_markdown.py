@@ -143,7 +143,8 @@ def _tokenise(body: str) -> list[_Heading | str]:
             continue
         if (
             _THEMATIC_BREAK.match(line)
-            or _TABLE_DELIMITER.match(line) and "|" in line
+            or _TABLE_DELIMITER.match(line)
+            and "|" in line
             or _LINK_DEFINITION.match(line)
         ):
             paragraph = 0

@@ -13,7 +13,8 @@ router = APIRouter(tags=["collections"])
 
 
 @router.get(
-    "/collections", response_model=CollectionsResponse,
+    "/collections",
+    response_model=CollectionsResponse,
     responses={503: {"model": ErrorResponse}},
 )
 def collections(searcher: SearcherDep, caller: ReadCaller) -> CollectionsResponse:

@@ -5,9 +5,8 @@ from __future__ import annotations
 import time
 
 from fastapi import APIRouter, HTTPException, Request
-
-from indexer.errors import QueryError
-from indexer.grounding import select_context, token_counter
+from sounding.indexer.errors import QueryError
+from sounding.indexer.grounding import select_context, token_counter
 
 from ..auth import ReadCaller
 from ..deps import SearcherDep, SettingsDep
@@ -50,21 +49,25 @@ def context(
     started = time.perf_counter()
     check_query_length(body.query, settings.max_query_chars)
     limit, setting = (
-        (settings.max_context_tokens, "max_context_tokens") if body.unit == "tokens"
+        (settings.max_context_tokens, "max_context_tokens")
+        if body.unit == "tokens"
         else (settings.max_context_chars, "max_context_chars")
     )
     if body.budget > limit:
         raise HTTPException(
-            422, f"budget={body.budget} {body.unit} is over the limit of {limit} "
-            f"(setting {setting})",
+            422,
+            f"budget={body.budget} {body.unit} is over the limit of {limit} (setting {setting})",
         )
     try:
         hits = searcher.search(
-            body.query, candidate_pool(body.budget, body.unit), mode=body.mode,
+            body.query,
+            candidate_pool(body.budget, body.unit),
+            mode=body.mode,
             # Loose, so adjacent windows of one document can join into one passage, yet
             # one long document cannot fill the whole pool.
             max_per_document=max(PER_DOCUMENT_POOL, 4 * body.max_per_document),
-            rerank=body.rerank, where=search_filter(caller, body),
+            rerank=body.rerank,
+            where=search_filter(caller, body),
         )
     except QueryError as exc:
         raise HTTPException(422, str(exc)) from exc

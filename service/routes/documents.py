@@ -14,11 +14,10 @@ from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, HTTPException, Path, Request
 from pydantic import ValidationError
-
-from indexer.access import parse_groups, parse_tags
-from indexer.build import PushReport, delete_document, push_document
-from indexer.errors import IndexLockedError, LoadError, SettingsError
-from indexer.loaders import parse_document
+from sounding.indexer.access import parse_groups, parse_tags
+from sounding.indexer.build import PushReport, delete_document, push_document
+from sounding.indexer.errors import IndexLockedError, LoadError, SettingsError
+from sounding.indexer.loaders import parse_document
 
 from ..auth import ReadCaller, WriteCaller
 from ..deps import EngineDep, SearcherDep, SettingsDep
@@ -31,8 +30,14 @@ MAX_ID_CHARS = 512
 # Path-like ids: segments of letters, digits and a few marks, joined by single slashes.
 _SEGMENT = r"[\w.~@:+=,()' -]+"
 _ID = re.compile(rf"^{_SEGMENT}(/{_SEGMENT})*$")
-_KINDS_BY_SUFFIX = {".md": "markdown", ".markdown": "markdown", ".html": "html",
-                    ".htm": "html", ".pdf": "pdf", ".txt": "text"}
+_KINDS_BY_SUFFIX = {
+    ".md": "markdown",
+    ".markdown": "markdown",
+    ".html": "html",
+    ".htm": "html",
+    ".pdf": "pdf",
+    ".txt": "text",
+}
 # One push at a time per process; the index lock orders it against `sounding index` runs.
 _push_lock = threading.Lock()
 
@@ -40,16 +45,22 @@ _push_lock = threading.Lock()
 def check_document_id(document_id: str) -> str:
     """``document_id`` if it is a safe id, else 422 naming the rule it breaks."""
     if len(document_id) > MAX_ID_CHARS:
-        raise HTTPException(422, f"document id is {len(document_id)} characters; at most "
-                            f"{MAX_ID_CHARS} are accepted")
+        raise HTTPException(
+            422,
+            f"document id is {len(document_id)} characters; at most {MAX_ID_CHARS} are accepted",
+        )
     if not _ID.match(document_id) or document_id != document_id.strip():
         raise HTTPException(
-            422, f"document id {document_id!r} is not accepted: use letters, digits, spaces "
+            422,
+            f"document id {document_id!r} is not accepted: use letters, digits, spaces "
             "and . _ ~ @ : + = , ( ) ' -, with single '/' between parts and none at either end",
         )
     if any(part in (".", "..") or part != part.strip() for part in document_id.split("/")):
-        raise HTTPException(422, f"document id {document_id!r} has a '.' or '..' part, or a "
-                            "part with spaces at its ends")
+        raise HTTPException(
+            422,
+            f"document id {document_id!r} has a '.' or '..' part, or a "
+            "part with spaces at its ends",
+        )
     return document_id
 
 
@@ -65,8 +76,9 @@ def _not_found(document_id: str) -> HTTPException:
     response_model=DocumentResponse,
     responses={404: {"model": ErrorResponse}, 503: {"model": ErrorResponse}},
 )
-def get_document(document_id: DocumentId, searcher: SearcherDep,
-                 caller: ReadCaller) -> DocumentResponse:
+def get_document(
+    document_id: DocumentId, searcher: SearcherDep, caller: ReadCaller
+) -> DocumentResponse:
     """A document by id (its path relative to the indexed folder, or its corpus ``_id``)."""
     reader = searcher.reader
     doc = readable(caller, reader.document(document_id))
@@ -108,7 +120,7 @@ async def _push_body(request: Request) -> tuple[PushRequest, bytes, str]:
             raise HTTPException(422, "a multipart push needs the document in a field 'file'")
         data = await upload.read()
         name = upload.filename or "upload"
-        suffix = name[name.rfind("."):].lower() if "." in name else ""
+        suffix = name[name.rfind(".") :].lower() if "." in name else ""
         kind = _KINDS_BY_SUFFIX.get(suffix)
         if kind is None:
             raise HTTPException(422, f"uploaded file {name!r} is not .md, .html, .pdf or .txt")
@@ -123,19 +135,22 @@ async def _push_body(request: Request) -> tuple[PushRequest, bytes, str]:
         try:
             meta = PushRequest(**fields)
         except ValidationError as exc:
-            reasons = "; ".join(f"{'.'.join(map(str, e['loc']))}: {e['msg']}"
-                                for e in exc.errors())
+            reasons = "; ".join(f"{'.'.join(map(str, e['loc']))}: {e['msg']}" for e in exc.errors())
             raise HTTPException(422, f"invalid request: {reasons}") from None
         return meta, data, kind
     if not content_type.startswith("application/json"):
-        raise HTTPException(415, "send the document as application/json "
-                            "({\"text\": ..., \"format\": \"markdown\"}) or as "
-                            "multipart/form-data with a field 'file'")
+        raise HTTPException(
+            415,
+            "send the document as application/json "
+            '({"text": ..., "format": "markdown"}) or as '
+            "multipart/form-data with a field 'file'",
+        )
     try:
         meta = PushRequest.model_validate_json(await request.body())
     except ValidationError as exc:
-        reasons = "; ".join(f"{'.'.join(map(str, e['loc'])) or 'body'}: {e['msg']}"
-                            for e in exc.errors())
+        reasons = "; ".join(
+            f"{'.'.join(map(str, e['loc'])) or 'body'}: {e['msg']}" for e in exc.errors()
+        )
         raise HTTPException(422, f"invalid request: {reasons}") from None
     return meta, meta.text.encode("utf-8"), meta.format
 
@@ -147,17 +162,36 @@ def _locked(exc: IndexLockedError) -> HTTPException:
 @router.put(
     "/documents/{document_id:path}",
     response_model=PushResponse,
-    responses={404: {"model": ErrorResponse}, 409: {"model": ErrorResponse},
-               413: {"model": ErrorResponse}, 415: {"model": ErrorResponse},
-               422: {"model": ErrorResponse}, 503: {"model": ErrorResponse}},
-    openapi_extra={"requestBody": {"required": True, "content": {
-        "application/json": {"schema": PushRequest.model_json_schema()},
-        "multipart/form-data": {"schema": {"type": "object", "required": ["file"], "properties": {
-            "file": {"type": "string", "format": "binary"},
-            "collection": {"type": "string"}, "groups": {"type": "string"},
-            "tags": {"type": "string"}, "title": {"type": "string"},
-            "source": {"type": "string"}}}},
-    }}},
+    responses={
+        404: {"model": ErrorResponse},
+        409: {"model": ErrorResponse},
+        413: {"model": ErrorResponse},
+        415: {"model": ErrorResponse},
+        422: {"model": ErrorResponse},
+        503: {"model": ErrorResponse},
+    },
+    openapi_extra={
+        "requestBody": {
+            "required": True,
+            "content": {
+                "application/json": {"schema": PushRequest.model_json_schema()},
+                "multipart/form-data": {
+                    "schema": {
+                        "type": "object",
+                        "required": ["file"],
+                        "properties": {
+                            "file": {"type": "string", "format": "binary"},
+                            "collection": {"type": "string"},
+                            "groups": {"type": "string"},
+                            "tags": {"type": "string"},
+                            "title": {"type": "string"},
+                            "source": {"type": "string"},
+                        },
+                    }
+                },
+            },
+        }
+    },
 )
 def put_document(
     document_id: DocumentId,
@@ -180,7 +214,10 @@ def put_document(
             raise _not_found(document_id)  # not yours to see, so not yours to replace
     try:
         doc = parse_document(
-            data, kind, doc_id=document_id, name=meta.title or document_id.rsplit("/", 1)[-1],
+            data,
+            kind,
+            doc_id=document_id,
+            name=meta.title or document_id.rsplit("/", 1)[-1],
             source=meta.source or f"pushed:{document_id}",
             modified=meta.modified if meta.modified is not None else time.time(),
         )
@@ -196,7 +233,12 @@ def put_document(
     with _push_lock:
         try:
             report: PushReport = push_document(
-                settings, engine.embedder, doc, collection, groups=groups, tags=tags,
+                settings,
+                engine.embedder,
+                doc,
+                collection,
+                groups=groups,
+                tags=tags,
                 wait_seconds=settings.push_wait_seconds,
             )
         except IndexLockedError as exc:
@@ -206,18 +248,29 @@ def put_document(
         except LoadError as exc:
             raise HTTPException(422, f"cannot index document {document_id!r}: {exc}") from None
         engine.reload()
-    return PushResponse(document_id=document_id, action=report.action, chunks=report.chunks,
-                        chunks_embedded=report.chunks_embedded, generation=report.generation)
+    return PushResponse(
+        document_id=document_id,
+        action=report.action,
+        chunks=report.chunks,
+        chunks_embedded=report.chunks_embedded,
+        generation=report.generation,
+    )
 
 
 @router.delete(
     "/documents/{document_id:path}",
     response_model=PushResponse,
-    responses={404: {"model": ErrorResponse}, 422: {"model": ErrorResponse},
-               503: {"model": ErrorResponse}},
+    responses={
+        404: {"model": ErrorResponse},
+        422: {"model": ErrorResponse},
+        503: {"model": ErrorResponse},
+    },
 )
 def remove_document(
-    document_id: DocumentId, caller: WriteCaller, settings: SettingsDep, engine: EngineDep,
+    document_id: DocumentId,
+    caller: WriteCaller,
+    settings: SettingsDep,
+    engine: EngineDep,
     searcher: SearcherDep,
 ) -> PushResponse:
     """Remove a document from the index (needs scope write); 404 when there is none."""
@@ -226,12 +279,18 @@ def remove_document(
         raise _not_found(document_id)
     with _push_lock:
         try:
-            report = delete_document(settings, engine.embedder, document_id,
-                                     wait_seconds=settings.push_wait_seconds)
+            report = delete_document(
+                settings, engine.embedder, document_id, wait_seconds=settings.push_wait_seconds
+            )
         except IndexLockedError as exc:
             raise _locked(exc) from None
         engine.reload()
     if report is None:
         raise _not_found(document_id)
-    return PushResponse(document_id=document_id, action=report.action, chunks=0,
-                        chunks_embedded=0, generation=report.generation)
+    return PushResponse(
+        document_id=document_id,
+        action=report.action,
+        chunks=0,
+        chunks_embedded=0,
+        generation=report.generation,
+    )

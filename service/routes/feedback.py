@@ -27,8 +27,10 @@ def feedback(
     document_id = body.document_id
     if body.chunk_id is not None:
         chunk = searcher.reader.chunks([body.chunk_id]).get(body.chunk_id)
-        if chunk is not None and readable(caller, searcher.reader.document(chunk.document_id)) \
-                is None:
+        if (
+            chunk is not None
+            and readable(caller, searcher.reader.document(chunk.document_id)) is None
+        ):
             chunk = None  # a passage the caller may not read is as good as absent
         if chunk is None:
             raise HTTPException(404, f"no chunk with id {body.chunk_id} in the index")
@@ -45,5 +47,4 @@ def feedback(
     j = request.app.state.judgments.record(
         body.query, document_id, body.grade, chunk_id=body.chunk_id, user=user
     )
-    return FeedbackResponse(id=j.id, query_id=j.query_id, document_id=j.document_id,
-                            grade=j.grade)
+    return FeedbackResponse(id=j.id, query_id=j.query_id, document_id=j.document_id, grade=j.grade)

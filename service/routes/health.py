@@ -3,9 +3,8 @@
 from __future__ import annotations
 
 from fastapi import APIRouter
-
-from indexer.embedding import describe
-from indexer.search import SearchFilter
+from sounding.indexer.embedding import describe
+from sounding.indexer.search import SearchFilter
 
 from ..deps import EngineDep
 from ..schemas import HealthResponse, ModelInfo
@@ -24,11 +23,20 @@ def health(engine: EngineDep) -> HealthResponse:
     model = ModelInfo(**describe(engine.embedder))  # type: ignore[arg-type]
     if searcher is None:
         return HealthResponse(
-            status="no-index", index_loaded=False, generation=None, documents=0, chunks=0,
-            model=model, detail=engine.error,
+            status="no-index",
+            index_loaded=False,
+            generation=None,
+            documents=0,
+            chunks=0,
+            model=model,
+            detail=engine.error,
         )
     docs, chunks = searcher.reader.visible_counts(SearchFilter(groups=frozenset()))
     return HealthResponse(
-        status="ok", index_loaded=True, generation=searcher.reader.generation,
-        documents=docs, chunks=chunks, model=model,
+        status="ok",
+        index_loaded=True,
+        generation=searcher.reader.generation,
+        documents=docs,
+        chunks=chunks,
+        model=model,
     )

@@ -14,8 +14,12 @@ router = APIRouter(tags=["operations"])
 @router.get(
     "/metrics",
     response_class=Response,
-    responses={200: {"content": {CONTENT_TYPE: {"schema": {"type": "string"}}},
-                     "description": "Metrics in the Prometheus text format."}},
+    responses={
+        200: {
+            "content": {CONTENT_TYPE: {"schema": {"type": "string"}}},
+            "description": "Metrics in the Prometheus text format.",
+        }
+    },
 )
 def metrics(request: Request) -> Response:
     """Request counts and latency histograms per route and mode, index size, last re-index."""

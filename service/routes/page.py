@@ -20,17 +20,19 @@ STATIC_DIR = Path(__file__).resolve().parent.parent / "static"
 # The page shows document text, so it may run only its own script and talk only to this
 # service: no inline script or style, no frames, no plugins, no other origins.
 # Directives as defined by Content Security Policy Level 3 (W3C).
-CONTENT_SECURITY_POLICY = "; ".join([
-    "default-src 'self'",
-    "script-src 'self'",
-    "style-src 'self'",
-    "img-src 'self' data:",
-    "connect-src 'self'",
-    "object-src 'none'",
-    "base-uri 'none'",
-    "form-action 'self'",
-    "frame-ancestors 'none'",
-])
+CONTENT_SECURITY_POLICY = "; ".join(
+    [
+        "default-src 'self'",
+        "script-src 'self'",
+        "style-src 'self'",
+        "img-src 'self' data:",
+        "connect-src 'self'",
+        "object-src 'none'",
+        "base-uri 'none'",
+        "form-action 'self'",
+        "frame-ancestors 'none'",
+    ]
+)
 
 PAGE_HEADERS = {
     "Content-Security-Policy": CONTENT_SECURITY_POLICY,

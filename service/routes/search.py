@@ -6,9 +6,8 @@ import logging
 import time
 
 from fastapi import APIRouter, HTTPException, Request, Response
-
-from indexer.errors import QueryError
-from indexer.search import Timings
+from sounding.indexer.errors import QueryError
+from sounding.indexer.search import Timings
 
 from ..auth import ReadCaller
 from ..deps import SearcherDep, SettingsDep
@@ -28,6 +27,7 @@ def timed_json(payload: str, timings: Timings) -> Response:
     header = ", ".join(f"{name};dur={ms:.3f}" for name, ms in timings.ms.items())
     log.debug("search stages (ms): %s", header)
     return Response(payload, media_type="application/json", headers={"Server-Timing": header})
+
 
 router = APIRouter(tags=["search"])
 
@@ -59,32 +59,37 @@ def search(
     timings = Timings()
     try:
         hits = searcher.search(
-            body.query, body.k, mode=body.mode, max_per_document=body.max_per_document,
-            rerank=body.rerank, where=search_filter(caller, body), timings=timings,
+            body.query,
+            body.k,
+            mode=body.mode,
+            max_per_document=body.max_per_document,
+            rerank=body.rerank,
+            where=search_filter(caller, body),
+            timings=timings,
         )
     except QueryError as exc:
         raise HTTPException(422, str(exc)) from exc
     with timings.stage("serialise"):
         payload = SearchResponse(
-        query=body.query,
-        k=body.k,
-        mode=body.mode,
-        generation=searcher.reader.generation,
-        took_ms=round((time.perf_counter() - started) * 1000, 3),
-        results=[
-            Passage(
-                rank=h.rank,
-                score=h.score,
-                chunk_id=h.chunk_id,
-                document_id=h.document_id,
-                collection=h.collection,
-                title=h.title,
-                source=h.source,
-                trail=list(h.trail),
-                text=h.text,
-                page=h.page,
-            )
-            for h in hits
-        ],
+            query=body.query,
+            k=body.k,
+            mode=body.mode,
+            generation=searcher.reader.generation,
+            took_ms=round((time.perf_counter() - started) * 1000, 3),
+            results=[
+                Passage(
+                    rank=h.rank,
+                    score=h.score,
+                    chunk_id=h.chunk_id,
+                    document_id=h.document_id,
+                    collection=h.collection,
+                    title=h.title,
+                    source=h.source,
+                    trail=list(h.trail),
+                    text=h.text,
+                    page=h.page,
+                )
+                for h in hits
+            ],
         ).model_dump_json()
     return timed_json(payload, timings)

@@ -36,17 +36,17 @@ from pathlib import Path
 REPO = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(REPO))
 
-from indexer.build import refresh_index  # noqa: E402
-from indexer.embedding import (  # noqa: E402
+from sounding.indexer.build import refresh_index  # noqa: E402
+from sounding.indexer.embedding import (  # noqa: E402
     SentenceTransformerEmbedder,
     bundled_model_path,
     quiet_offline,
 )
-from indexer.evaluation import find_corpus, run_from_rankings  # noqa: E402
-from indexer.experiment import read_judged, score_run  # noqa: E402
-from indexer.search import MODES, Searcher  # noqa: E402
-from indexer.settings import IndexSettings  # noqa: E402
-from indexer.store import IndexReader  # noqa: E402
+from sounding.indexer.evaluation import find_corpus, run_from_rankings  # noqa: E402
+from sounding.indexer.experiment import read_judged, score_run  # noqa: E402
+from sounding.indexer.search import MODES, Searcher  # noqa: E402
+from sounding.indexer.settings import IndexSettings  # noqa: E402
+from sounding.indexer.store import IndexReader  # noqa: E402
 
 DEPTH = 100
 
@@ -89,19 +89,24 @@ def naive(records, ids, texts, qrels) -> Row:
     model = SentenceTransformer(str(bundled_model_path()), device="cpu")
     model.encode(["warm up"])
     started = time.perf_counter()
-    corpus = model.encode([f"{r.get('title', '')} {r.get('text', '')}" for r in records],
-                          convert_to_tensor=True, show_progress_bar=False)
+    corpus = model.encode(
+        [f"{r.get('title', '')} {r.get('text', '')}" for r in records],
+        convert_to_tensor=True,
+        show_progress_bar=False,
+    )
     index_s = time.perf_counter() - started
     run: dict[str, dict[str, float]] = {}
     for qid, text in zip(ids, texts, strict=True):
-        hits = util.semantic_search(model.encode(text, convert_to_tensor=True), corpus,
-                                    top_k=DEPTH)[0]
+        hits = util.semantic_search(
+            model.encode(text, convert_to_tensor=True), corpus, top_k=DEPTH
+        )[0]
         run[qid] = {str(records[h["corpus_id"]]["_id"]): float(h["score"]) for h in hits}
     means, _ = score_run(run, qrels)
-    p50, p99 = latencies(texts, lambda q: util.semantic_search(
-        model.encode(q, convert_to_tensor=True), corpus, top_k=10))
-    return Row("naive st+semantic_search", index_s, p50, p99, means["ndcg@10"],
-               means["recall@100"])
+    p50, p99 = latencies(
+        texts,
+        lambda q: util.semantic_search(model.encode(q, convert_to_tensor=True), corpus, top_k=10),
+    )
+    return Row("naive st+semantic_search", index_s, p50, p99, means["ndcg@10"], means["recall@100"])
 
 
 def bm25(records, ids, texts, qrels) -> Row:
@@ -112,8 +117,12 @@ def bm25(records, ids, texts, qrels) -> Row:
     started = time.perf_counter()
     retriever = bm25s.BM25()
     retriever.index(
-        bm25s.tokenize([f"{r.get('title', '')} {r.get('text', '')}" for r in records],
-                       stopwords="en", stemmer=stemmer, show_progress=False),
+        bm25s.tokenize(
+            [f"{r.get('title', '')} {r.get('text', '')}" for r in records],
+            stopwords="en",
+            stemmer=stemmer,
+            show_progress=False,
+        ),
         show_progress=False,
     )
     index_s = time.perf_counter() - started
@@ -121,14 +130,16 @@ def bm25(records, ids, texts, qrels) -> Row:
     def ask(query: str, k: int):
         return retriever.retrieve(
             bm25s.tokenize([query], stopwords="en", stemmer=stemmer, show_progress=False),
-            k=k, show_progress=False,
+            k=k,
+            show_progress=False,
         )
 
     run = {}
     for qid, text in zip(ids, texts, strict=True):
         docs, scores = ask(text, DEPTH)
-        run[qid] = {str(records[i]["_id"]): float(s)
-                    for i, s in zip(docs[0], scores[0], strict=True)}
+        run[qid] = {
+            str(records[i]["_id"]): float(s) for i, s in zip(docs[0], scores[0], strict=True)
+        }
     means, _ = score_run(run, qrels)
     p50, p99 = latencies(texts, lambda q: ask(q, 10))
     return Row("bm25s", index_s, p50, p99, means["ndcg@10"], means["recall@100"])
@@ -147,18 +158,35 @@ def sounding(corpus: Path, ids, texts, qrels, precision: str, scratch: Path) -> 
         run = run_from_rankings(ids, searcher.rank_documents(texts, DEPTH, mode=mode))
         means, _ = score_run(run, qrels)
         p50, p99 = latencies(texts, lambda q, m=mode: searcher.search(q, 10, mode=m))
-        rows.append(Row(f"sounding {mode} ({embedder.precision})", index_s, p50, p99,
-                        means["ndcg@10"], means["recall@100"]))
+        rows.append(
+            Row(
+                f"sounding {mode} ({embedder.precision})",
+                index_s,
+                p50,
+                p99,
+                means["ndcg@10"],
+                means["recall@100"],
+            )
+        )
     return rows
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--benchmarks", type=Path, default=REPO.parent / "shared" / "benchmarks",
-                        help="folder of BEIR-layout collections (default ../shared/benchmarks)")
+    parser.add_argument(
+        "--benchmarks",
+        type=Path,
+        default=REPO.parent / "shared" / "benchmarks",
+        help="folder of BEIR-layout collections (default ../shared/benchmarks)",
+    )
     parser.add_argument("--collection", default="scifact")
-    parser.add_argument("--precision", nargs="+", default=["auto"],
-                        choices=["auto", "fp32", "bf16"], help="sounding encoder precision(s)")
+    parser.add_argument(
+        "--precision",
+        nargs="+",
+        default=["auto"],
+        choices=["auto", "fp32", "bf16"],
+        help="sounding encoder precision(s)",
+    )
     args = parser.parse_args()
 
     folder = args.benchmarks / args.collection
@@ -171,20 +199,25 @@ def main() -> None:
 
     baselines = [naive(records, ids, texts, qrels), bm25(records, ids, texts, qrels)]
     with tempfile.TemporaryDirectory(prefix="sounding-compare-") as scratch:
-        ours = [r for p in args.precision for r in sounding(corpus, ids, texts, qrels, p,
-                                                             Path(scratch))]
+        ours = [
+            r for p in args.precision for r in sounding(corpus, ids, texts, qrels, p, Path(scratch))
+        ]
     head = f"{'system':<28}{'index s':>9}{'p50 ms':>8}{'p99 ms':>8}{'nDCG@10':>9}{'R@100':>8}"
     print(head)
     for r in baselines + ours:
-        print(f"{r.system:<28}{r.index_s:>9.1f}{r.p50_ms:>8.2f}{r.p99_ms:>8.2f}"
-              f"{r.ndcg:>9.4f}{r.recall:>8.4f}")
+        print(
+            f"{r.system:<28}{r.index_s:>9.1f}{r.p50_ms:>8.2f}{r.p99_ms:>8.2f}"
+            f"{r.ndcg:>9.4f}{r.recall:>8.4f}"
+        )
     print("\nratio sounding / baseline (times: < 1 is faster; quality: > 1 is better)")
     print(f"{'system':<28}{'vs':<8}{'index':>7}{'p50':>7}{'p99':>7}{'nDCG@10':>9}{'R@100':>7}")
     for r in ours:
         for b, tag in zip(baselines, ("naive", "bm25s"), strict=True):
-            print(f"{r.system:<28}{tag:<8}{r.index_s / b.index_s:>7.2f}"
-                  f"{r.p50_ms / b.p50_ms:>7.2f}{r.p99_ms / b.p99_ms:>7.2f}"
-                  f"{r.ndcg / b.ndcg:>9.3f}{r.recall / b.recall:>7.3f}")
+            print(
+                f"{r.system:<28}{tag:<8}{r.index_s / b.index_s:>7.2f}"
+                f"{r.p50_ms / b.p50_ms:>7.2f}{r.p99_ms / b.p99_ms:>7.2f}"
+                f"{r.ndcg / b.ndcg:>9.3f}{r.recall / b.recall:>7.3f}"
+            )
 
 
 if __name__ == "__main__":

@@ -37,18 +37,17 @@ sys.path.insert(0, str(REPO))
 
 import numpy as np  # noqa: E402
 import torch  # noqa: E402
-
-from indexer.build import _GROUP_CHUNKS  # noqa: E402
-from indexer.chunking import ChunkSettings, chunk_document  # noqa: E402
-from indexer.documents import Document  # noqa: E402
-from indexer.embedding import (  # noqa: E402
+from sounding.indexer.build import _GROUP_CHUNKS  # noqa: E402
+from sounding.indexer.chunking import ChunkSettings, chunk_document  # noqa: E402
+from sounding.indexer.documents import Document  # noqa: E402
+from sounding.indexer.embedding import (  # noqa: E402
     BF16_FLAGS,
     SentenceTransformerEmbedder,
     cpu_flags,
     usable_cores,
 )
-from indexer.evaluation import find_corpus, read_queries  # noqa: E402
-from indexer.loaders import iter_root  # noqa: E402
+from sounding.indexer.evaluation import find_corpus, read_queries  # noqa: E402
+from sounding.indexer.loaders import iter_root  # noqa: E402
 
 DTYPES = {"fp32": torch.float32, "bf16": torch.bfloat16}
 
@@ -115,16 +114,21 @@ def timed(fn, repeats: int) -> tuple[float, float]:
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--benchmarks", type=Path, default=REPO.parent / "shared" / "benchmarks",
-                        help="folder of BEIR-layout collections (default ../shared/benchmarks)")
+    parser.add_argument(
+        "--benchmarks",
+        type=Path,
+        default=REPO.parent / "shared" / "benchmarks",
+        help="folder of BEIR-layout collections (default ../shared/benchmarks)",
+    )
     parser.add_argument("--collection", default="med")
     parser.add_argument("--limit", type=int, default=None, help="at most this many chunks")
     parser.add_argument("--batch-size", type=int, default=32)
     parser.add_argument("--repeats", type=int, default=2)
     parser.add_argument("--threads", type=int, default=None, help="default: every usable core")
     parser.add_argument("--matmul-n", type=int, default=2048)
-    parser.add_argument("--precisions", nargs="+", default=["fp32", "bf16"],
-                        choices=["fp32", "bf16"])
+    parser.add_argument(
+        "--precisions", nargs="+", default=["fp32", "bf16"], choices=["fp32", "bf16"]
+    )
     args = parser.parse_args()
 
     threads = args.threads or usable_cores()
@@ -135,23 +139,31 @@ def main() -> None:
 
     probe = SentenceTransformerEmbedder(precision="fp32", threads=threads)
     n, layers, d = linear_weights(probe)
-    print(f"encoder {probe.name}: N={n:,} Linear weights in {layers} blocks, d={d}; "
-          f"FLOPs/text = L*(2N + 4*{layers}*L*{d})")
-    corpora = {"demo": REPO / "demo_corpus",
-               args.collection: find_corpus(args.benchmarks / args.collection)}
+    print(
+        f"encoder {probe.name}: N={n:,} Linear weights in {layers} blocks, d={d}; "
+        f"FLOPs/text = L*(2N + 4*{layers}*L*{d})"
+    )
+    corpora = {
+        "demo": REPO / "demo_corpus",
+        args.collection: find_corpus(args.benchmarks / args.collection),
+    }
     texts = {name: chunk_texts(root, probe.tokenizer, args.limit) for name, root in corpora.items()}
     queries = list(read_queries(args.benchmarks / args.collection / "queries.jsonl").values())[:50]
 
-    head = (f"{'corpus':<10}{'prec':<6}{'path':<11}{'chunks':>7}{'tokens':>9}{'cold s':>8}"
-            f"{'best s':>8}{'chunks/s':>10}{'tokens/s':>10}{'GFLOP/s':>9}{'% peak':>8}"
-            f"{'pad %':>7}")
+    head = (
+        f"{'corpus':<10}{'prec':<6}{'path':<11}{'chunks':>7}{'tokens':>9}{'cold s':>8}"
+        f"{'best s':>8}{'chunks/s':>10}{'tokens/s':>10}{'GFLOP/s':>9}{'% peak':>8}"
+        f"{'pad %':>7}"
+    )
 
     def line(r: dict) -> str:
         share = f"{100 * r['rate'] / peaks[r['precision']]:>8.1f}" if r["final"] else f"{'-':>8}"
-        return (f"{r['corpus']:<10}{r['precision']:<6}{r['path']:<11}{r['chunks']:>7}"
-                f"{r['tokens']:>9}{r['cold']:>8.2f}{r['best']:>8.2f}"
-                f"{r['chunks'] / r['best']:>10.1f}{r['tokens'] / r['best']:>10.0f}"
-                f"{r['rate'] / 1e9:>9.1f}{share}{r['pad']:>7.1f}")
+        return (
+            f"{r['corpus']:<10}{r['precision']:<6}{r['path']:<11}{r['chunks']:>7}"
+            f"{r['tokens']:>9}{r['cold']:>8.2f}{r['best']:>8.2f}"
+            f"{r['chunks'] / r['best']:>10.1f}{r['tokens'] / r['best']:>10.0f}"
+            f"{r['rate'] / 1e9:>9.1f}{share}{r['pad']:>7.1f}"
+        )
 
     print(head)
     rows: list[dict] = []
@@ -174,46 +186,70 @@ def main() -> None:
             for i in range(0, len(chunk_list), _GROUP_CHUNKS):
                 part = lengths[i : i + _GROUP_CHUNKS]
                 chars = [len(t) for t in chunk_list[i : i + _GROUP_CHUNKS]]
-                for path, order in (("sounding", sorted(part, reverse=True)),
-                                    ("st-chars", [part[j] for j in np.argsort(
-                                        [-c for c in chars], kind="stable")])):
+                for path, order in (
+                    ("sounding", sorted(part, reverse=True)),
+                    ("st-chars", [part[j] for j in np.argsort([-c for c in chars], kind="stable")]),
+                ):
                     ex, us = flops(order, args.batch_size, n, layers, d)
                     cost[path] = (cost[path][0] + ex, cost[path][1] + us)
             # Both paths get the chunks in the groups refresh_index hands the encoder.
-            groups = [chunk_list[i : i + _GROUP_CHUNKS]
-                      for i in range(0, len(chunk_list), _GROUP_CHUNKS)]
+            groups = [
+                chunk_list[i : i + _GROUP_CHUNKS] for i in range(0, len(chunk_list), _GROUP_CHUNKS)
+            ]
             paths = {
                 "sounding": lambda g=groups, e=embedder: [e.encode(t) for t in g],
                 # sentence-transformers' own encode: it sorts by characters.
-                "st-chars": lambda g=groups, m=model: [m.encode(
-                    t, batch_size=args.batch_size, convert_to_tensor=True,
-                    show_progress_bar=False) for t in g],
+                "st-chars": lambda g=groups, m=model: [
+                    m.encode(
+                        t,
+                        batch_size=args.batch_size,
+                        convert_to_tensor=True,
+                        show_progress_bar=False,
+                    )
+                    for t in g
+                ],
             }
             for path, fn in paths.items():
                 cold, best = timed(fn, args.repeats)
                 executed, useful = cost[path]
-                rows.append({"corpus": name, "precision": precision, "path": path,
-                             "chunks": len(chunk_list), "tokens": sum(lengths), "cold": cold,
-                             "best": best, "rate": executed / best,
-                             "pad": (1 - useful / executed) * 100, "final": False})
+                rows.append(
+                    {
+                        "corpus": name,
+                        "precision": precision,
+                        "path": path,
+                        "chunks": len(chunk_list),
+                        "tokens": sum(lengths),
+                        "cold": cold,
+                        "best": best,
+                        "rate": executed / best,
+                        "pad": (1 - useful / executed) * 100,
+                        "final": False,
+                    }
+                )
                 print(line(rows[-1]), flush=True)
     # The peak is measured again after the encoder ran and the higher figure kept: on a
     # shared machine a neighbour can take a core during either measurement.
     for p in args.precisions:
         before, after = peaks[p], matmul_peak(DTYPES[p], args.matmul_n)
         peaks[p] = max(before, after)
-        print(f"matmul peak {p}: {peaks[p] / 1e9:,.0f} GFLOP/s (torch.mm {args.matmul_n}^2, "
-              f"best of 3 s; before {before / 1e9:,.0f}, after {after / 1e9:,.0f})")
+        print(
+            f"matmul peak {p}: {peaks[p] / 1e9:,.0f} GFLOP/s (torch.mm {args.matmul_n}^2, "
+            f"best of 3 s; before {before / 1e9:,.0f}, after {after / 1e9:,.0f})"
+        )
     print(head)
     for r in rows:
         r["final"] = True
         print(line(r))
-    print("sounding: batches sorted by word pieces; st-chars: sentence-transformers' encode, "
-          "sorted by characters. GFLOP/s and % peak count executed FLOPs (padded batches); "
-          "pad % = share of them spent on padding")
+    print(
+        "sounding: batches sorted by word pieces; st-chars: sentence-transformers' encode, "
+        "sorted by characters. GFLOP/s and % peak count executed FLOPs (padded batches); "
+        "pad % = share of them spent on padding"
+    )
     for precision, ms in latency.items():
-        print(f"single-query encode p50 {precision}: {ms:.1f} ms "
-              f"({len(queries)} {args.collection} queries, one at a time)")
+        print(
+            f"single-query encode p50 {precision}: {ms:.1f} ms "
+            f"({len(queries)} {args.collection} queries, one at a time)"
+        )
 
 
 if __name__ == "__main__":

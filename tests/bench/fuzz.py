@@ -30,7 +30,8 @@ from schemathesis.core.failures import FailureGroup
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from service.app import create_app  # noqa: E402
+from sounding.service.app import create_app  # noqa: E402
+
 from tests.integration.test_fuzz import CHECKS, build_wiki  # noqa: E402
 from tests.serving import running  # noqa: E402
 

@@ -54,13 +54,15 @@ def main() -> None:
     scratch = tempfile.TemporaryDirectory()
     root = args.cache or Path(scratch.name)
     words = [f"term{i}" for i in range(5000)]
-    print(f"{'chunks':>8} {'mode':<8}{'p50 ms':>8}{'p99 ms':>8}  "
-          + "".join(f"{s:>10}" for s in STAGES) + f"{'other':>8}{'RSS MiB':>9}")
+    print(
+        f"{'chunks':>8} {'mode':<8}{'p50 ms':>8}{'p99 ms':>8}  "
+        + "".join(f"{s:>10}" for s in STAGES)
+        + f"{'other':>8}{'RSS MiB':>9}"
+    )
     for n in args.chunks:
         index_dir = root / f"synthetic-{n}"
         build_synthetic(index_dir, n)
-        with serving(index_dir) as (base, server), \
-                httpx.Client(base_url=base, timeout=30) as http:
+        with serving(index_dir) as (base, server), httpx.Client(base_url=base, timeout=30) as http:
             for i in range(30):  # warm-up: first-call costs (threads, caches, allocator)
                 http.post("/search", json={"query": f"warm {words[i]}", "k": 10})
             for mode in args.modes:
@@ -78,9 +80,12 @@ def main() -> None:
                         stages[s].append(timing.get(s, 0.0))
                     inside.append(sum(timing.values()))
                 other = statistics.median(e - t for e, t in zip(e2e, inside, strict=True))
-                print(f"{n:>8} {mode:<8}{pct(e2e, 0.5):>8.1f}{pct(e2e, 0.99):>8.1f}  "
-                      + "".join(f"{statistics.median(stages[s]):>10.2f}" for s in STAGES)
-                      + f"{other:>8.2f}{rss_mib(server.pid):>9.0f}", flush=True)
+                print(
+                    f"{n:>8} {mode:<8}{pct(e2e, 0.5):>8.1f}{pct(e2e, 0.99):>8.1f}  "
+                    + "".join(f"{statistics.median(stages[s]):>10.2f}" for s in STAGES)
+                    + f"{other:>8.2f}{rss_mib(server.pid):>9.0f}",
+                    flush=True,
+                )
 
 
 if __name__ == "__main__":

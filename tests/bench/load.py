@@ -30,11 +30,11 @@ import numpy as np
 REPO = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(REPO))
 
-from indexer.chunking import Chunk, ChunkSettings  # noqa: E402
-from indexer.documents import Document, Section  # noqa: E402
-from indexer.embedding import SentenceTransformerEmbedder, describe  # noqa: E402
-from indexer.store import IndexWriter, Manifest  # noqa: E402
-from indexer.vectors import plan_vectors  # noqa: E402
+from sounding.indexer.chunking import Chunk, ChunkSettings  # noqa: E402
+from sounding.indexer.documents import Document, Section  # noqa: E402
+from sounding.indexer.embedding import SentenceTransformerEmbedder, describe  # noqa: E402
+from sounding.indexer.store import IndexWriter, Manifest  # noqa: E402
+from sounding.indexer.vectors import plan_vectors  # noqa: E402
 
 
 def build_synthetic(index_dir: Path, n_chunks: int, seed: int = 0) -> None:
@@ -58,13 +58,24 @@ def build_synthetic(index_dir: Path, n_chunks: int, seed: int = 0) -> None:
             ranks = np.minimum(rng.zipf(1.3, size=10 * 80), 5000) - 1
             words = [vocab[r] for r in ranks]
             chunks = [
-                Chunk(ordinal=j, trail=(f"Part {j}",), text=" ".join(words[j * 80:(j + 1) * 80]),
-                      embed_text="", tokens=90)
+                Chunk(
+                    ordinal=j,
+                    trail=(f"Part {j}",),
+                    text=" ".join(words[j * 80 : (j + 1) * 80]),
+                    embed_text="",
+                    tokens=90,
+                )
                 for j in range(10)
             ]
-            doc = Document(id=f"doc-{d:06d}", title=f"Synthetic page {d}", source="synthetic",
-                           modified=0.0, content_hash=str(d), kind="text",
-                           sections=(Section((), "x"),))
+            doc = Document(
+                id=f"doc-{d:06d}",
+                title=f"Synthetic page {d}",
+                source="synthetic",
+                modified=0.0,
+                content_hash=str(d),
+                kind="text",
+                sections=(Section((), "x"),),
+            )
             writer.put(doc, "synthetic", chunks, all_vectors[d * 10 : (d + 1) * 10])
         writer.publish()
 
@@ -88,11 +99,24 @@ def serving(index_dir: Path) -> Iterator[tuple[str, subprocess.Popen]]:
     port = free_port()
     env = {k: v for k, v in os.environ.items() if not k.startswith("SOUNDING_")}
     server = subprocess.Popen(
-        [sys.executable, "-m", "service.cli", "serve", "--index", str(index_dir),
-         "--port", str(port)],
-        env=env | {"SOUNDING_LOG_LEVEL": "warning", "SOUNDING_MAX_K": "100",
-                   "SOUNDING_REQUIRE_KEYS": "false"},
-        stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+        [
+            sys.executable,
+            "-m",
+            "sounding.cli",
+            "serve",
+            "--index",
+            str(index_dir),
+            "--port",
+            str(port),
+        ],
+        env=env
+        | {
+            "SOUNDING_LOG_LEVEL": "warning",
+            "SOUNDING_MAX_K": "100",
+            "SOUNDING_REQUIRE_KEYS": "false",
+        },
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
     )
     base = f"http://127.0.0.1:{port}"
     try:
@@ -123,8 +147,9 @@ def drive(base: str, mode: str, clients: int, seconds: float) -> tuple[list[floa
             while time.monotonic() < stop_at:
                 started = time.perf_counter()
                 try:
-                    r = http.post("/search", json={"query": queries[i % len(queries)], "k": 10,
-                                                   "mode": mode})
+                    r = http.post(
+                        "/search", json={"query": queries[i % len(queries)], "k": 10, "mode": mode}
+                    )
                     ok = r.status_code == 200
                 except httpx.HTTPError:
                     ok = False
@@ -154,8 +179,10 @@ def main() -> None:
     args = parser.parse_args()
     scratch = tempfile.TemporaryDirectory()
     root = args.cache or Path(scratch.name)
-    print(f"{'chunks':>8} {'mode':<8}{'req/s':>8}{'p50 ms':>8}{'p95 ms':>8}{'p99 ms':>8}"
-          f"{'errors':>8}{'RSS MiB':>9}")
+    print(
+        f"{'chunks':>8} {'mode':<8}{'req/s':>8}{'p50 ms':>8}{'p95 ms':>8}{'p99 ms':>8}"
+        f"{'errors':>8}{'RSS MiB':>9}"
+    )
     for n in args.chunks:
         index_dir = root / f"synthetic-{n}"
         build_synthetic(index_dir, n)
@@ -163,10 +190,16 @@ def main() -> None:
             for mode in ("dense", "lexical", "hybrid"):
                 drive(base, mode, args.clients, 2.0)  # warm
                 lat, errors, wall = drive(base, mode, args.clients, args.seconds)
-                q = (statistics.quantiles(lat, n=100, method="inclusive")
-                     if len(lat) > 1 else [0.0] * 99)
-                print(f"{n:>8} {mode:<8}{len(lat) / wall:>8.1f}{q[49]:>8.1f}{q[94]:>8.1f}"
-                      f"{q[98]:>8.1f}{errors:>8}{rss_mib(server.pid):>9.0f}", flush=True)
+                q = (
+                    statistics.quantiles(lat, n=100, method="inclusive")
+                    if len(lat) > 1
+                    else [0.0] * 99
+                )
+                print(
+                    f"{n:>8} {mode:<8}{len(lat) / wall:>8.1f}{q[49]:>8.1f}{q[94]:>8.1f}"
+                    f"{q[98]:>8.1f}{errors:>8}{rss_mib(server.pid):>9.0f}",
+                    flush=True,
+                )
 
 
 if __name__ == "__main__":

@@ -21,13 +21,14 @@ from pathlib import Path
 REPO = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(REPO))
 
-from indexer.build import refresh_index  # noqa: E402
-from indexer.embedding import SentenceTransformerEmbedder  # noqa: E402
-from indexer.evaluation import find_corpus, run_from_rankings  # noqa: E402
-from indexer.experiment import read_judged, score_run  # noqa: E402
-from indexer.search import MODES, Searcher  # noqa: E402
-from indexer.settings import IndexSettings  # noqa: E402
-from indexer.store import IndexReader  # noqa: E402
+from sounding.indexer.build import refresh_index  # noqa: E402
+from sounding.indexer.embedding import SentenceTransformerEmbedder  # noqa: E402
+from sounding.indexer.evaluation import find_corpus, run_from_rankings  # noqa: E402
+from sounding.indexer.experiment import read_judged, score_run  # noqa: E402
+from sounding.indexer.search import MODES, Searcher  # noqa: E402
+from sounding.indexer.settings import IndexSettings  # noqa: E402
+from sounding.indexer.store import IndexReader  # noqa: E402
+
 from tests.conftest import BENCHMARKS_DIR  # noqa: E402
 
 
@@ -39,19 +40,25 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--cache", type=Path, help="keep indexes here between runs")
     parser.add_argument("--latency-queries", type=int, default=100)
-    parser.add_argument("--precision", nargs="+", default=["auto"],
-                        choices=["auto", "fp32", "bf16"], help="encoder precision(s) to compare")
+    parser.add_argument(
+        "--precision",
+        nargs="+",
+        default=["auto"],
+        choices=["auto", "fp32", "bf16"],
+        help="encoder precision(s) to compare",
+    )
     parser.add_argument("collections", nargs="*", help="default: every collection found")
     args = parser.parse_args()
     names = args.collections or sorted(
         d.name for d in BENCHMARKS_DIR.iterdir() if (d / "qrels.tsv").is_file()
     )
-    embedders = {p: SentenceTransformerEmbedder(batch_size=64, precision=p)
-                 for p in args.precision}
+    embedders = {p: SentenceTransformerEmbedder(batch_size=64, precision=p) for p in args.precision}
     scratch = tempfile.TemporaryDirectory()
     root = args.cache or Path(scratch.name)
-    print(f"{'collection':<11}{'prec':<10}{'mode':<9}{'nDCG@10':>9}{'R@100':>8}{'p50 ms':>8}"
-          f"{'p95 ms':>8}{'queries':>9}{'chunks':>8}{'build s':>9}")
+    print(
+        f"{'collection':<11}{'prec':<10}{'mode':<9}{'nDCG@10':>9}{'R@100':>8}{'p50 ms':>8}"
+        f"{'p95 ms':>8}{'queries':>9}{'chunks':>8}{'build s':>9}"
+    )
     for name in names:
         folder = BENCHMARKS_DIR / name
         queries, qrels = read_judged(folder)
@@ -59,8 +66,13 @@ def main() -> None:
         texts = [queries[q] for q in ids]
         runs = []  # (label, index precision, query encoder)
         for precision, embedder in embedders.items():
-            runs.append((precision if precision != "auto" else f"auto:{embedder.precision}",
-                         precision, embedder))
+            runs.append(
+                (
+                    precision if precision != "auto" else f"auto:{embedder.precision}",
+                    precision,
+                    embedder,
+                )
+            )
         if {"fp32", "bf16"} <= embedders.keys():
             runs.append(("fp32>bf16", "fp32", embedders["bf16"]))
         for label, built_with, embedder in runs:
@@ -81,10 +93,13 @@ def main() -> None:
                     started = time.perf_counter()
                     searcher.search(text, 10, mode=mode)
                     times.append((time.perf_counter() - started) * 1000)
-                print(f"{name:<11}{label:<10}{mode:<9}{means['ndcg@10']:>9.4f}"
-                      f"{means['recall@100']:>8.4f}{percentile(times, 50):>8.1f}"
-                      f"{percentile(times, 95):>8.1f}{len(ids):>9}"
-                      f"{searcher.reader.counts()[1]:>8}{build:>9.1f}", flush=True)
+                print(
+                    f"{name:<11}{label:<10}{mode:<9}{means['ndcg@10']:>9.4f}"
+                    f"{means['recall@100']:>8.4f}{percentile(times, 50):>8.1f}"
+                    f"{percentile(times, 95):>8.1f}{len(ids):>9}"
+                    f"{searcher.reader.counts()[1]:>8}{build:>9.1f}",
+                    flush=True,
+                )
 
 
 if __name__ == "__main__":

@@ -16,9 +16,9 @@ from pathlib import Path
 REPO = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(REPO))
 
-from indexer.build import refresh_index  # noqa: E402
-from indexer.embedding import SentenceTransformerEmbedder  # noqa: E402
-from indexer.settings import IndexSettings  # noqa: E402
+from sounding.indexer.build import refresh_index  # noqa: E402
+from sounding.indexer.embedding import SentenceTransformerEmbedder  # noqa: E402
+from sounding.indexer.settings import IndexSettings  # noqa: E402
 
 
 def main(argv: list[str]) -> int:

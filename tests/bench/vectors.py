@@ -43,7 +43,7 @@ import numpy as np
 REPO = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(REPO))
 
-from indexer.vectors import (  # noqa: E402
+from sounding.indexer.vectors import (  # noqa: E402
     IVF,
     VectorPlan,
     build_vectors,
@@ -79,6 +79,7 @@ def recall_at_10(found: np.ndarray, exact: np.ndarray) -> float:
 
 # --- measured in a fresh process ------------------------------------------------------------
 
+
 def _status() -> dict[str, int]:
     out = {}
     for line in Path("/proc/self/status").read_text().splitlines():
@@ -102,14 +103,18 @@ def probe(index_path: str, queries_path: str, flags: int, threads: int) -> None:
         times.append(time.perf_counter() - started)
     after = _status()
     _, found = search_vectors(index, queries, 10)
-    print(json.dumps({
-        "anon": loaded["RssAnon"] - before["RssAnon"],
-        "file": after["RssFile"] - before["RssFile"],
-        "anon_after": after["RssAnon"] - before["RssAnon"],
-        "p50": 1e3 * float(np.percentile(times, 50)),
-        "p99": 1e3 * float(np.percentile(times, 99)),
-        "found": found.tolist(),
-    }))
+    print(
+        json.dumps(
+            {
+                "anon": loaded["RssAnon"] - before["RssAnon"],
+                "file": after["RssFile"] - before["RssFile"],
+                "anon_after": after["RssAnon"] - before["RssAnon"],
+                "p50": 1e3 * float(np.percentile(times, 50)),
+                "p99": 1e3 * float(np.percentile(times, 99)),
+                "found": found.tolist(),
+            }
+        )
+    )
 
 
 def measure(path: Path, queries_path: Path, threads: int, mmap: bool, kind: str) -> dict:
@@ -117,14 +122,24 @@ def measure(path: Path, queries_path: Path, threads: int, mmap: bool, kind: str)
     # (The two flags do not combine: FAISS 1.15 then refuses the IVF file.)
     flags = 0 if not mmap else faiss.IO_FLAG_MMAP if kind == IVF else faiss.IO_FLAG_MMAP_IFC
     proc = subprocess.run(
-        [sys.executable, __file__, "--probe", str(path), str(queries_path), str(flags),
-         str(threads)],
-        capture_output=True, text=True, check=True,
+        [
+            sys.executable,
+            __file__,
+            "--probe",
+            str(path),
+            str(queries_path),
+            str(flags),
+            str(threads),
+        ],
+        capture_output=True,
+        text=True,
+        check=True,
     )
     return json.loads(proc.stdout.strip().splitlines()[-1])
 
 
 # --- the table ------------------------------------------------------------------------------
+
 
 def candidates(n: int, exact_below: int) -> list[tuple[str, VectorPlan]]:
     auto = plan_vectors(n, DIM, exact_below=exact_below)
@@ -133,8 +148,14 @@ def candidates(n: int, exact_below: int) -> list[tuple[str, VectorPlan]]:
         rows.append(("ivf forced", plan_vectors(n, DIM, kind="ivf")))
     else:
         nlist = auto.params["nlist"]
-        rows.append(("ivf 4·sqrt(n) cells", VectorPlan(IVF, {
-            "nlist": min(2 * nlist, n // 39), "quantizer": "SQ8", "nprobe": None})))
+        rows.append(
+            (
+                "ivf 4·sqrt(n) cells",
+                VectorPlan(
+                    IVF, {"nlist": min(2 * nlist, n // 39), "quantizer": "SQ8", "nprobe": None}
+                ),
+            )
+        )
         rows.append(("ivf SQfp16", VectorPlan(IVF, {**auto.params, "quantizer": "SQfp16"})))
     return rows
 
@@ -158,8 +179,9 @@ def bench_size(n: int, args: argparse.Namespace, workdir: Path) -> list[list[str
         calibrated = ""
         if plan.kind == IVF:
             # What build_vectors does with nprobe None, in two steps to see the recall.
-            index = build_vectors(VectorPlan(IVF, {**plan.params, "nprobe": 1}), ids, matrix,
-                                  seed=args.seed)
+            index = build_vectors(
+                VectorPlan(IVF, {**plan.params, "nprobe": 1}), ids, matrix, seed=args.seed
+            )
             index.nprobe, self_recall = calibrate_nprobe(index, ids, matrix, seed=args.seed)
             calibrated = f"{self_recall:.3f}"
         else:
@@ -178,19 +200,39 @@ def bench_size(n: int, args: argparse.Namespace, workdir: Path) -> list[list[str
         for threads, mmap in runs:
             r = measure(path, queries_path, threads, mmap, plan.kind)
             recall = recall_at_10(np.array(r["found"]), exact_ids)
-            rows.append([
-                f"{n:,}", name + (" [mmap]" if mmap else ""), str(threads),
-                f"{build:.1f}", f"{file_bytes / n:.0f}", f"{r['anon_after'] / n:.0f}",
-                f"{r['file'] / n:.0f}", f"{r['p50']:.2f}", f"{r['p99']:.2f}",
-                f"{recall:.3f}", calibrated,
-            ])
+            rows.append(
+                [
+                    f"{n:,}",
+                    name + (" [mmap]" if mmap else ""),
+                    str(threads),
+                    f"{build:.1f}",
+                    f"{file_bytes / n:.0f}",
+                    f"{r['anon_after'] / n:.0f}",
+                    f"{r['file'] / n:.0f}",
+                    f"{r['p50']:.2f}",
+                    f"{r['p99']:.2f}",
+                    f"{recall:.3f}",
+                    calibrated,
+                ]
+            )
             print("  " + " | ".join(rows[-1]), flush=True)
         path.unlink()
     return rows
 
 
-HEADER = ["chunks", "index", "threads", "build s", "file B/chunk", "anon B/chunk",
-          "mmap'd B/chunk", "p50 ms", "p99 ms", "recall@10", "calib. recall"]
+HEADER = [
+    "chunks",
+    "index",
+    "threads",
+    "build s",
+    "file B/chunk",
+    "anon B/chunk",
+    "mmap'd B/chunk",
+    "p50 ms",
+    "p99 ms",
+    "recall@10",
+    "calib. recall",
+]
 
 
 def sqlite_rows(paths: list[Path]) -> list[list[str]]:
@@ -202,22 +244,32 @@ def sqlite_rows(paths: list[Path]) -> list[list[str]]:
         conn = sqlite3.connect(f"{path.resolve().as_uri()}?mode=ro", uri=True)
         chunks = conn.execute("SELECT count(*) FROM chunks").fetchone()[0]
         text, vec = conn.execute(
-            "SELECT avg(length(text)), avg(length(vector)) FROM chunks").fetchone()
+            "SELECT avg(length(text)), avg(length(vector)) FROM chunks"
+        ).fetchone()
         sizes = dict(conn.execute("SELECT name, sum(pgsize) FROM dbstat GROUP BY name"))
         page = conn.execute("PRAGMA page_size").fetchone()[0]
         conn.close()
         fts = sum(v for k, v in sizes.items() if k.startswith("chunks_fts"))
         table = sizes.get("chunks", 0)
-        rows.append([str(path), f"{chunks:,}", f"{page}", f"{path.stat().st_size / chunks:.0f}",
-                     f"{table / chunks:.0f}", f"{fts / chunks:.0f}",
-                     f"{(path.stat().st_size - table - fts) / chunks:.0f}",
-                     f"{text:.0f}", f"{vec:.0f}"])
+        rows.append(
+            [
+                str(path),
+                f"{chunks:,}",
+                f"{page}",
+                f"{path.stat().st_size / chunks:.0f}",
+                f"{table / chunks:.0f}",
+                f"{fts / chunks:.0f}",
+                f"{(path.stat().st_size - table - fts) / chunks:.0f}",
+                f"{text:.0f}",
+                f"{vec:.0f}",
+            ]
+        )
     return rows
 
 
 def demo_index(workdir: Path) -> Path:
-    from indexer.build import refresh_index
-    from indexer.settings import IndexSettings
+    from sounding.indexer.build import refresh_index
+    from sounding.indexer.settings import IndexSettings
 
     settings = IndexSettings(index_dir=workdir / "demo-index")
     refresh_index([REPO / "demo_corpus"], settings, settings.embedder())
@@ -226,10 +278,13 @@ def demo_index(workdir: Path) -> Path:
 
 def table(header: list[str], rows: list[list[str]]) -> str:
     widths = [max(len(h), *(len(r[i]) for r in rows)) for i, h in enumerate(header)]
-    line = lambda cells: "| " + " | ".join(c.ljust(w) for c, w in zip(  # noqa: E731
-        cells, widths, strict=True)) + " |"
-    return "\n".join([line(header), "|" + "|".join("-" * (w + 2) for w in widths) + "|",
-                      *map(line, rows)])
+
+    def line(cells: list[str]) -> str:
+        return "| " + " | ".join(c.ljust(w) for c, w in zip(cells, widths, strict=True)) + " |"
+
+    return "\n".join(
+        [line(header), "|" + "|".join("-" * (w + 2) for w in widths) + "|", *map(line, rows)]
+    )
 
 
 def main() -> None:
@@ -239,24 +294,47 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--sizes", type=int, nargs="+", default=[10_000, 100_000, 1_000_000])
     parser.add_argument("--queries", type=int, default=200, help="single queries timed")
-    parser.add_argument("--threads", type=int, nargs="+", default=[1],
-                        help="FAISS OpenMP threads while searching (builds use all cores)")
-    parser.add_argument("--exact-below", type=int, default=None,
-                        help="threshold of the automatic choice (default: the setting's)")
-    parser.add_argument("--no-mmap", dest="mmap", action="store_false",
-                        help="skip the rows that load the file with IO_FLAG_MMAP")
-    parser.add_argument("--all", action="store_true",
-                        help="also build the alternatives above 200k chunks (minutes each)")
-    parser.add_argument("--sqlite", type=Path, nargs="*", default=None,
-                        help="sounding.db files to report (default: index demo_corpus)")
+    parser.add_argument(
+        "--threads",
+        type=int,
+        nargs="+",
+        default=[1],
+        help="FAISS OpenMP threads while searching (builds use all cores)",
+    )
+    parser.add_argument(
+        "--exact-below",
+        type=int,
+        default=None,
+        help="threshold of the automatic choice (default: the setting's)",
+    )
+    parser.add_argument(
+        "--no-mmap",
+        dest="mmap",
+        action="store_false",
+        help="skip the rows that load the file with IO_FLAG_MMAP",
+    )
+    parser.add_argument(
+        "--all",
+        action="store_true",
+        help="also build the alternatives above 200k chunks (minutes each)",
+    )
+    parser.add_argument(
+        "--sqlite",
+        type=Path,
+        nargs="*",
+        default=None,
+        help="sounding.db files to report (default: index demo_corpus)",
+    )
     parser.add_argument("--seed", type=int, default=0)
     args = parser.parse_args()
     if args.exact_below is None:
-        from indexer.vectors import DEFAULT_EXACT_BELOW
+        from sounding.indexer.vectors import DEFAULT_EXACT_BELOW
 
         args.exact_below = DEFAULT_EXACT_BELOW
-    print(f"{os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f}, faiss "
-          f"{faiss.__version__}, exact_below {args.exact_below:,}")
+    print(
+        f"{os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f}, faiss "
+        f"{faiss.__version__}, exact_below {args.exact_below:,}"
+    )
     started = time.perf_counter()
     with tempfile.TemporaryDirectory(prefix="sounding-vectors-") as tmp:
         workdir = Path(tmp)
@@ -264,8 +342,22 @@ def main() -> None:
         print("\n" + table(HEADER, rows))
         dbs = args.sqlite if args.sqlite else [demo_index(workdir)]
         print("\nSQLite bytes per chunk (B/chunk; text and vector: mean stored length)\n")
-        print(table(["sounding.db", "chunks", "page", "file", "chunks table", "FTS5",
-                     "other", "text", "vector"], sqlite_rows(dbs)))
+        print(
+            table(
+                [
+                    "sounding.db",
+                    "chunks",
+                    "page",
+                    "file",
+                    "chunks table",
+                    "FTS5",
+                    "other",
+                    "text",
+                    "vector",
+                ],
+                sqlite_rows(dbs),
+            )
+        )
     print(f"\nload average {os.getloadavg()[0]:.2f}; total {time.perf_counter() - started:.0f} s")
 
 

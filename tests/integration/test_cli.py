@@ -11,7 +11,7 @@ from pathlib import Path
 
 import pytest
 
-SOUNDING = [sys.executable, "-m", "service.cli"]
+SOUNDING = [sys.executable, "-m", "sounding.cli"]
 
 
 def run(*args: str, env: dict[str, str] | None = None, cwd: Path | None = None):
@@ -29,8 +29,9 @@ def one_line_error(proc: subprocess.CompletedProcess) -> str:
     return lines[0]
 
 
-@pytest.mark.parametrize("command", ["index", "search", "serve", "eval", "check", "judgments",
-                                     "keys"])
+@pytest.mark.parametrize(
+    "command", ["index", "search", "serve", "eval", "check", "judgments", "keys"]
+)
 def test_every_command_help_has_an_example(command: str) -> None:
     proc = run(command, "--help")
     assert proc.returncode == 0
@@ -54,8 +55,12 @@ def test_bad_model_folder_is_one_line(tmp_path: Path) -> None:
     (tmp_path / "docs").mkdir()
     (tmp_path / "docs" / "a.md").write_text("# A\n\ntext\n")
     proc = run(
-        "index", str(tmp_path / "docs"), "--index", str(tmp_path / "idx"),
-        "--model", str(tmp_path),
+        "index",
+        str(tmp_path / "docs"),
+        "--index",
+        str(tmp_path / "idx"),
+        "--model",
+        str(tmp_path),
     )
     assert proc.returncode == 3
     assert "model folder" in one_line_error(proc)
@@ -87,8 +92,17 @@ def test_index_and_search_round_trip(tmp_path: Path) -> None:
     assert found.returncode == 0, found.stderr
     (hit,) = json.loads(found.stdout)
     assert hit["document_id"] == "canteen.txt" and hit["rank"] == 1
-    narrowed = run("search", "when can I eat at midday?", "--index", idx, "-k", "1", "--json",
-                   "--under", "boiler")
+    narrowed = run(
+        "search",
+        "when can I eat at midday?",
+        "--index",
+        idx,
+        "-k",
+        "1",
+        "--json",
+        "--under",
+        "boiler",
+    )
     assert [h["document_id"] for h in json.loads(narrowed.stdout)] == ["boiler.md"]
 
 

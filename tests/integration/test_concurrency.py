@@ -13,11 +13,11 @@ from collections import Counter
 from pathlib import Path
 
 import httpx
+from sounding.indexer.build import refresh_index
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.service.app import create_app
+from sounding.service.settings import ServiceSettings
 
-from indexer.build import refresh_index
-from indexer.embedding import HashingEmbedder
-from service.app import create_app
-from service.settings import ServiceSettings
 from tests.serving import running
 
 CLIENTS = 8
@@ -40,7 +40,9 @@ def test_queries_answer_from_one_complete_generation_during_reindexes(tmp_path: 
     root = tmp_path / "wiki"
     root.mkdir()
     settings = ServiceSettings(
-        require_keys=False, index_dir=tmp_path / "idx", reload_check_seconds=0,
+        require_keys=False,
+        index_dir=tmp_path / "idx",
+        reload_check_seconds=0,
     )
     embedder = HashingEmbedder(32, seed=3)
     plan = {1: range(0, 200), 2: range(0, 250), 3: range(100, 250)}  # docs per generation
@@ -65,8 +67,14 @@ def test_queries_answer_from_one_complete_generation_during_reindexes(tmp_path: 
                         if h["documents"] != len(plan[gen]):
                             errors.append(f"health of generation {gen}: {h['documents']} docs")
                         continue
-                    r = http.post("/search", json={"query": f"reservoir valve pump {i % 7}",
-                                                   "k": 10, "mode": modes[(n + i) % 3]})
+                    r = http.post(
+                        "/search",
+                        json={
+                            "query": f"reservoir valve pump {i % 7}",
+                            "k": 10,
+                            "mode": modes[(n + i) % 3],
+                        },
+                    )
                 except httpx.HTTPError as exc:
                     errors.append(f"client {n}: {type(exc).__name__}: {exc}")
                     continue

@@ -9,10 +9,10 @@ from pathlib import Path
 import httpx
 import numpy as np
 import pytest
+from sounding.indexer.build import refresh_index
+from sounding.service.app import create_app
+from sounding.service.settings import ServiceSettings
 
-from indexer.build import refresh_index
-from service.app import create_app
-from service.settings import ServiceSettings
 from tests.conftest import DEMO_CORPUS
 from tests.integration.stopwords import content_words
 from tests.serving import running
@@ -44,7 +44,8 @@ class CountingEmbedder:
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory: pytest.TempPathFactory, real_embedder):
     settings = ServiceSettings(
-        require_keys=False, index_dir=tmp_path_factory.mktemp("demo") / "index",
+        require_keys=False,
+        index_dir=tmp_path_factory.mktemp("demo") / "index",
     )
     report = refresh_index([DEMO_CORPUS], settings, real_embedder)
     return settings, report
@@ -91,9 +92,7 @@ def test_paraphrase_questions_share_no_content_word_with_their_answer(base: str,
 
 @pytest.mark.parametrize("q", QUESTIONS, ids=lambda q: q["question"][:40])
 def test_expected_document_is_in_the_top_five(base: str, q) -> None:
-    r = httpx.post(
-        f"{base}/search", json={"query": q["question"], "k": 5, "max_per_document": 1}
-    )
+    r = httpx.post(f"{base}/search", json={"query": q["question"], "k": 5, "max_per_document": 1})
     assert r.status_code == 200
     top = [p["document_id"] for p in r.json()["results"]]
     assert set(q["expected"]) & set(top), f"expected {q['expected']}, got {top}"
@@ -101,16 +100,19 @@ def test_expected_document_is_in_the_top_five(base: str, q) -> None:
 
 def test_the_query_the_demo_prints_finds_its_answer(base: str) -> None:
     # scripts/demo.sh and the README print this curl; a new user's first query.
-    r = httpx.post(f"{base}/search", json={
-        "query": "can I move unused vacation days to next year?", "k": 3})
+    r = httpx.post(
+        f"{base}/search", json={"query": "can I move unused vacation days to next year?", "k": 3}
+    )
     assert "hr/annual-leave.md" in [p["document_id"] for p in r.json()["results"]]
 
 
 def test_chunks_fit_the_encoder_with_the_real_tokenizer(demo, real_embedder) -> None:
     settings, _ = demo
     conn = sqlite3.connect(settings.index_dir / "sounding.db")
-    rows = conn.execute("SELECT c.text, c.trail, c.tokens, d.title FROM chunks c "
-                        "JOIN documents d ON d.id = c.document_id").fetchall()
+    rows = conn.execute(
+        "SELECT c.text, c.trail, c.tokens, d.title FROM chunks c "
+        "JOIN documents d ON d.id = c.document_id"
+    ).fetchall()
     assert len(rows) > 100
     # all-MiniLM-L6-v2's max_seq_length is 256 word pieces (its sentence_bert_config.json).
     assert max(r[2] for r in rows) <= 256 == real_embedder.max_tokens

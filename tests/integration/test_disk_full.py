@@ -15,10 +15,9 @@ import sys
 from pathlib import Path
 
 import pytest
-
-from indexer.check import check_index
-from indexer.embedding import bundled_model_path
-from indexer.store import IndexReader
+from sounding.indexer.check import check_index
+from sounding.indexer.embedding import bundled_model_path
+from sounding.indexer.store import IndexReader
 
 pytestmark = pytest.mark.slow
 
@@ -38,8 +37,18 @@ def test_full_disk_during_reindex_keeps_the_last_generation(tmp_path: Path) -> N
         (root / f"p{i}.md").write_text(f"# Page {i}\n\nShort page {i}.\n")
     idx = tmp_path / "idx"
     env = {k: v for k, v in os.environ.items() if not k.startswith("SOUNDING_")}
-    command = [sys.executable, "-m", "service.cli", "index", str(root), "--index", str(idx),
-               "--model", str(bundled_model_path()), "--quiet"]
+    command = [
+        sys.executable,
+        "-m",
+        "sounding.cli",
+        "index",
+        str(root),
+        "--index",
+        str(idx),
+        "--model",
+        str(bundled_model_path()),
+        "--quiet",
+    ]
     assert subprocess.run(command, env=env, capture_output=True, timeout=600).returncode == 0
     before = IndexReader(idx).counts()
     # The next run would write far more than the limit allows.
@@ -47,7 +56,11 @@ def test_full_disk_during_reindex_keeps_the_last_generation(tmp_path: Path) -> N
         (root / f"big{i}.md").write_text(f"# Big {i}\n\n" + "many words here " * 400)
     size = max(p.stat().st_size for p in idx.iterdir() if p.is_file())
     proc = subprocess.run(
-        command, env=env, capture_output=True, text=True, timeout=600,
+        command,
+        env=env,
+        capture_output=True,
+        text=True,
+        timeout=600,
         preexec_fn=_limit_file_size(size + 256 * 1024),
     )
     assert proc.returncode != 0

@@ -17,12 +17,12 @@ import pytest
 import schemathesis
 from hypothesis import HealthCheck, given, settings
 from schemathesis import GenerationMode
+from sounding.indexer.build import refresh_index
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.service.app import create_app
+from sounding.service.limits import MAX_DOCUMENT_ID_CHARS, nesting_depth
+from sounding.service.settings import ServiceSettings
 
-from indexer.build import refresh_index
-from indexer.embedding import HashingEmbedder
-from service.app import create_app
-from service.limits import MAX_DOCUMENT_ID_CHARS, nesting_depth
-from service.settings import ServiceSettings
 from tests.serving import running
 
 MAX_EXAMPLES = 30
@@ -50,8 +50,13 @@ def build_wiki(
         path.parent.mkdir(parents=True, exist_ok=True)
         path.write_text(text)
     settings = ServiceSettings(
-        require_keys=False, index_dir=tmp / "index", reload_check_seconds=0, max_k=20,
-        max_query_chars=200, max_body_bytes=max_body_bytes, push_wait_seconds=1,
+        require_keys=False,
+        index_dir=tmp / "index",
+        reload_check_seconds=0,
+        max_k=20,
+        max_query_chars=200,
+        max_body_bytes=max_body_bytes,
+        push_wait_seconds=1,
     )
     embedder = HashingEmbedder(16)
     refresh_index([root], settings, embedder)
@@ -96,8 +101,9 @@ def test_every_operation_is_fuzzed(api_schema) -> None:
     assert listed == set(OPERATIONS)
 
 
-@pytest.mark.parametrize("mode", [GenerationMode.POSITIVE, GenerationMode.NEGATIVE],
-                         ids=lambda m: m.value)
+@pytest.mark.parametrize(
+    "mode", [GenerationMode.POSITIVE, GenerationMode.NEGATIVE], ids=lambda m: m.value
+)
 @pytest.mark.parametrize(("path", "method"), OPERATIONS, ids=lambda v: v.strip("/"))
 def test_fuzzed_requests_never_get_a_server_error(api_schema, path, method, mode) -> None:
     if mode is GenerationMode.NEGATIVE and method == "GET":
@@ -136,8 +142,7 @@ JSON = {"content-type": "application/json"}
         ("/search", b'{"query": "valve", "k": NaN}', 422, "NaN"),
         ("/search", b'{"query": "valve", "k": -Infinity}', 422, "Infinity"),
         ("/search", b'{"query": "valve", "k": ' + b"9" * 30 + b"}", 422, "64-bit"),
-        ("/feedback", b'{"query": "q", "chunk_id": ' + b"9" * 30 + b', "grade": 1}', 422,
-         "64-bit"),
+        ("/feedback", b'{"query": "q", "chunk_id": ' + b"9" * 30 + b', "grade": 1}', 422, "64-bit"),
         ("/feedback", b'{"query": "q", "document_id": "\\ud83d", "grade": 1}', 422, "surrogate"),
         ("/search", b'{"query": "\xc1&"}', 422, "not text in UTF-8"),
         ("/feedback", b"\x1d\xbb\xccd\xd1\xc2\x0f\xb68", 422, "not text in UTF-8"),
@@ -209,7 +214,7 @@ def test_odd_document_ids_never_get_a_server_error(base: str, path: str, status:
 def test_unexpected_errors_are_a_json_500_without_the_traceback(
     tmp_path: Path, monkeypatch: pytest.MonkeyPatch, caplog: pytest.LogCaptureFixture
 ) -> None:
-    from indexer.store import IndexReader
+    from sounding.indexer.store import IndexReader
 
     def broken(self, document_id):
         raise RuntimeError("secret internals")

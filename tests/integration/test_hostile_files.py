@@ -14,16 +14,16 @@ import sys
 from pathlib import Path
 
 import pytest
+from sounding.indexer import loaders
+from sounding.indexer.build import RefreshReport, refresh_index
+from sounding.indexer.embedding import HashingEmbedder, bundled_model_path
+from sounding.indexer.loaders._common import INVALID_UTF8
+from sounding.indexer.loaders._html import NO_MARKUP
+from sounding.indexer.loaders._pdf import ENCRYPTED
+from sounding.indexer.search import Searcher
+from sounding.indexer.settings import IndexSettings
+from sounding.indexer.store import IndexReader
 
-from indexer import loaders
-from indexer.build import RefreshReport, refresh_index
-from indexer.embedding import HashingEmbedder, bundled_model_path
-from indexer.loaders._common import INVALID_UTF8
-from indexer.loaders._html import NO_MARKUP
-from indexer.loaders._pdf import ENCRYPTED
-from indexer.search import Searcher
-from indexer.settings import IndexSettings
-from indexer.store import IndexReader
 from tests.unit.test_loaders import encrypt_pdf, make_pdf
 
 MAX_FILE_BYTES = 4096
@@ -50,27 +50,33 @@ GOOD: dict[str, tuple[bytes, str]] = {
         "pump seven bearings",
     ),
     "odd names/with space.md": (
-        b"# Spaces\n\nGravel filter backwash schedule.\n", "gravel backwash",
+        b"# Spaces\n\nGravel filter backwash schedule.\n",
+        "gravel backwash",
     ),
     "odd names/\u00fcn\u00efc\u00f8d\u00e9 \u2603.md": (
-        "# Unicode\n\nSchneemann m\u00f6chte Gl\u00fchwein.\n".encode(), "Schneemann Glühwein",
+        "# Unicode\n\nSchneemann m\u00f6chte Gl\u00fchwein.\n".encode(),
+        "Schneemann Glühwein",
     ),
     "odd names/quote'\"s.md": (
-        b"# Quotes\n\nChlorine dosing pump calibration.\n", "chlorine dosing",
+        b"# Quotes\n\nChlorine dosing pump calibration.\n",
+        "chlorine dosing",
     ),
     "odd names/new\nline.md": (b"# Newline\n\nTurbidity sensor cleaning.\n", "turbidity sensor"),
     "odd names/-leading-dash.md": (b"# Dash\n\nHydrant flushing in spring.\n", "hydrant flushing"),
     "/".join(["deep"] * DEEP_LEVELS) + "/bottom.md": (
-        b"# Bottom\n\nThe deepest folder holds the sludge lagoon survey.\n", "sludge lagoon survey",
+        b"# Bottom\n\nThe deepest folder holds the sludge lagoon survey.\n",
+        "sludge lagoon survey",
     ),
     # Invalid UTF-8 is indexed with a warning, the bad byte replaced.
     "bad-encoding/latin1.md": (
-        b"# Caf\xe9 menu\n\nThe canteen caf\xe9 serves soup on Fridays.\n", "canteen soup fridays",
+        b"# Caf\xe9 menu\n\nThe canteen caf\xe9 serves soup on Fridays.\n",
+        "canteen soup fridays",
     ),
     # A good file with mode 000: root ignores permissions, so for root it is indexed;
     # test_unreadable_file_is_skipped simulates the denial at the loaders' read seam.
     "unreadable/locked.md": (
-        b"# Locked\n\nAeration basin blower maintenance.\n", "aeration blower",
+        b"# Locked\n\nAeration basin blower maintenance.\n",
+        "aeration blower",
     ),
 }
 
@@ -242,9 +248,7 @@ def test_unreadable_file_is_skipped(tmp_path: Path, monkeypatch: pytest.MonkeyPa
         return real_read(path)
 
     monkeypatch.setattr(loaders, "_read_bytes", read)
-    report = refresh_index(
-        [root], IndexSettings(index_dir=tmp_path / "index"), HashingEmbedder(16)
-    )
+    report = refresh_index([root], IndexSettings(index_dir=tmp_path / "index"), HashingEmbedder(16))
     assert [(s.path, s.reason) for s in report.skipped] == [("locked.md", loaders.PERMISSION)]
     assert report.added == ["open.md"]
 
@@ -291,11 +295,22 @@ def test_cli_indexes_the_corpus_and_reports_skips_without_a_traceback(tmp_path: 
     try:
         proc = subprocess.run(
             [
-                sys.executable, "-m", "service.cli", "index", str(root),
-                "--index", str(tmp_path / "index"), "--json", "--quiet",
-                "--model", str(bundled_model_path()),
+                sys.executable,
+                "-m",
+                "sounding.cli",
+                "index",
+                str(root),
+                "--index",
+                str(tmp_path / "index"),
+                "--json",
+                "--quiet",
+                "--model",
+                str(bundled_model_path()),
             ],
-            capture_output=True, text=True, env=env, timeout=600,
+            capture_output=True,
+            text=True,
+            env=env,
+            timeout=600,
         )
     finally:
         os.chmod(root / "unreadable/locked.md", 0o600)

@@ -16,10 +16,9 @@ import time
 from pathlib import Path
 
 import pytest
-
-from indexer.embedding import SentenceTransformerEmbedder, bundled_model_path
-from indexer.search import Searcher
-from indexer.store import IndexReader
+from sounding.indexer.embedding import SentenceTransformerEmbedder, bundled_model_path
+from sounding.indexer.search import Searcher
+from sounding.indexer.store import IndexReader
 
 TRIALS = 20
 DOCS = 420
@@ -35,9 +34,14 @@ def tiny_model(tmp_path_factory: pytest.TempPathFactory) -> Path:
     torch.manual_seed(0)
     base = tmp_path_factory.mktemp("tiny-encoder")
     tok = AutoTokenizer.from_pretrained(str(bundled_model_path()))
-    config = BertConfig(vocab_size=tok.vocab_size, hidden_size=32, num_hidden_layers=1,
-                        num_attention_heads=2, intermediate_size=64,
-                        max_position_embeddings=512)
+    config = BertConfig(
+        vocab_size=tok.vocab_size,
+        hidden_size=32,
+        num_hidden_layers=1,
+        num_attention_heads=2,
+        intermediate_size=64,
+        max_position_embeddings=512,
+    )
     BertModel(config).save_pretrained(base / "bert")
     tok.save_pretrained(base / "bert")
     word = models.Transformer(str(base / "bert"), max_seq_length=256)
@@ -60,7 +64,7 @@ def write_corpus(root: Path, revision: int, rng: random.Random) -> set[str]:
 
 
 def cli(*args: str) -> list[str]:
-    return [sys.executable, "-m", "service.cli", *args]
+    return [sys.executable, "-m", "sounding.cli", *args]
 
 
 def test_sigkill_at_random_moments_never_breaks_the_index(tmp_path: Path, tiny_model) -> None:
@@ -73,16 +77,18 @@ def test_sigkill_at_random_moments_never_breaks_the_index(tmp_path: Path, tiny_m
     ids = write_corpus(root, 0, rng)
 
     started = time.monotonic()
-    first = subprocess.run(cli("index", str(root), "--quiet"), env=env, capture_output=True,
-                           text=True, timeout=600)
+    first = subprocess.run(
+        cli("index", str(root), "--quiet"), env=env, capture_output=True, text=True, timeout=600
+    )
     run_seconds = time.monotonic() - started
     assert first.returncode == 0, first.stderr
     # A second, full re-index timed too: kills are spread over the shorter of the two, so a
     # first run slowed by other work on the machine does not send most kills past the end.
     write_corpus(root, TRIALS + 1, rng)
     started = time.monotonic()
-    second = subprocess.run(cli("index", str(root), "--quiet"), env=env, capture_output=True,
-                            text=True, timeout=600)
+    second = subprocess.run(
+        cli("index", str(root), "--quiet"), env=env, capture_output=True, text=True, timeout=600
+    )
     run_seconds = min(run_seconds, time.monotonic() - started)
     assert second.returncode == 0, second.stderr
     embedder = SentenceTransformerEmbedder(tiny_model)
@@ -93,13 +99,13 @@ def test_sigkill_at_random_moments_never_breaks_the_index(tmp_path: Path, tiny_m
     for trial in range(TRIALS):
         write_corpus(root, trial + 1, rng)  # every document changes: a full re-index
         args = ["index", str(root), "--quiet"] + (["--rebuild"] if trial % 4 == 3 else [])
-        proc = subprocess.Popen(cli(*args), env=env, stdout=subprocess.DEVNULL,
-                                stderr=subprocess.DEVNULL)
+        proc = subprocess.Popen(
+            cli(*args), env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL
+        )
         time.sleep(rng.uniform(0.0, run_seconds))
         os.kill(proc.pid, signal.SIGKILL)
         killed_mid_run += proc.wait() == -signal.SIGKILL
-        check = subprocess.run(cli("check"), env=env, capture_output=True, text=True,
-                               timeout=300)
+        check = subprocess.run(cli("check"), env=env, capture_output=True, text=True, timeout=300)
         if check.returncode != 0:
             failures.append(f"trial {trial}: check failed: {check.stdout.strip()}")
             continue
@@ -114,13 +120,16 @@ def test_sigkill_at_random_moments_never_breaks_the_index(tmp_path: Path, tiny_m
         if len(hits) != 5 or any(h.document_id not in ids for h in hits):
             failures.append(f"trial {trial}: search gave {[h.document_id for h in hits]}")
         reader.close()
-    print(f"\nkill test: {TRIALS} trials, {killed_mid_run} killed mid-run, "
-          f"{len(failures)} failures; one full run takes {run_seconds:.1f} s")
+    print(
+        f"\nkill test: {TRIALS} trials, {killed_mid_run} killed mid-run, "
+        f"{len(failures)} failures; one full run takes {run_seconds:.1f} s"
+    )
     assert failures == []
     assert killed_mid_run >= TRIALS // 2  # most kills must land inside a run
 
-    final = subprocess.run(cli("index", str(root), "--json"), env=env, capture_output=True,
-                           text=True, timeout=600)
+    final = subprocess.run(
+        cli("index", str(root), "--json"), env=env, capture_output=True, text=True, timeout=600
+    )
     assert final.returncode == 0, final.stderr
     reader = IndexReader(idx)
     assert set(reader.chunk_documents().values()) == ids

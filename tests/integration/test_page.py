@@ -19,13 +19,13 @@ from pathlib import Path
 
 import httpx
 import pytest
+from sounding.indexer.build import refresh_index
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.service.app import create_app
+from sounding.service.keys import KeyStore
+from sounding.service.routes.page import STATIC_DIR
+from sounding.service.settings import ServiceSettings
 
-from indexer.build import refresh_index
-from indexer.embedding import HashingEmbedder
-from service.app import create_app
-from service.keys import KeyStore
-from service.routes.page import STATIC_DIR
-from service.settings import ServiceSettings
 from tests.serving import running
 
 CHROMIUM = Path("/usr/bin/chromium")
@@ -77,8 +77,11 @@ def _browser_or_skip() -> None:
     except ImportError:
         missing.append("the selenium package (pip install selenium)")
     if missing:
-        reason = ("search page test needs " + ", ".join(missing)
-                  + "; `bash scripts/test.sh` installs them (apt-get chromium chromium-driver)")
+        reason = (
+            "search page test needs "
+            + ", ".join(missing)
+            + "; `bash scripts/test.sh` installs them (apt-get chromium chromium-driver)"
+        )
         if os.environ.get("CI"):
             pytest.fail(reason + " — CI is set, so this test may not be skipped")
         pytest.skip(reason)
@@ -97,7 +100,9 @@ def site(tmp_path_factory: pytest.TempPathFactory) -> Iterator[dict]:
             path.write_text(text)
         roots.append(root)
     settings = ServiceSettings(
-        index_dir=base / "index", reload_check_seconds=0, max_query_chars=200,
+        index_dir=base / "index",
+        reload_check_seconds=0,
+        max_query_chars=200,
         require_keys=True,
     )
     embedder = HashingEmbedder(32, seed=3)
@@ -120,11 +125,19 @@ def browser(tmp_path_factory: pytest.TempPathFactory) -> Iterator[object]:
     options = webdriver.ChromeOptions()
     options.binary_location = str(CHROMIUM)
     # The flags that keep Chromium from reaching for Google's services on a closed network.
-    for flag in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-quic",
-                 "--no-first-run", "--disable-background-networking",
-                 "--disable-component-update", "--disable-sync", "--disable-dev-shm-usage",
-                 "--window-size=1200,900",
-                 f"--user-data-dir={tmp_path_factory.mktemp('chromium-profile')}"):
+    for flag in (
+        "--headless=new",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--disable-quic",
+        "--no-first-run",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        "--disable-dev-shm-usage",
+        "--window-size=1200,900",
+        f"--user-data-dir={tmp_path_factory.mktemp('chromium-profile')}",
+    ):
         options.add_argument(flag)
     options.set_capability("goog:loggingPrefs", {"browser": "ALL"})
     with pytest.MonkeyPatch.context() as mp:
@@ -168,11 +181,15 @@ def _open(driver, site: dict, key: str | None) -> None:
     driver.get(site["url"] + "/")
     driver.execute_script("sessionStorage.clear()")
     if key is not None:
-        driver.execute_script("sessionStorage.setItem('sounding.key', arguments[0])",
-                              site["keys"][key])
+        driver.execute_script(
+            "sessionStorage.setItem('sounding.key', arguments[0])", site["keys"][key]
+        )
     driver.get(site["url"] + "/?fresh")
-    _wait(driver, lambda d: d.execute_script("return document.readyState") == "complete",
-          "the page did not finish loading")
+    _wait(
+        driver,
+        lambda d: d.execute_script("return document.readyState") == "complete",
+        "the page did not finish loading",
+    )
 
 
 def _search(driver, query: str, mode: str = "hybrid", collection: str = "") -> list[dict]:
@@ -182,16 +199,25 @@ def _search(driver, query: str, mode: str = "hybrid", collection: str = "") -> l
 
     Select(_by_id(driver, "mode")).select_by_value(mode)
     if collection:
-        _wait(driver, lambda d: _by_id(d, "collection").is_displayed(),
-              "the collection filter never appeared")
+        _wait(
+            driver,
+            lambda d: _by_id(d, "collection").is_displayed(),
+            "the collection filter never appeared",
+        )
         Select(_by_id(driver, "collection")).select_by_value(collection)
     box = _by_id(driver, "q")
     box.clear()
     box.send_keys(query, Keys.ENTER)
-    _wait(driver, lambda d: _by_id(d, "results").is_displayed() or _by_id(d, "error")
-          .is_displayed(), f"no results or error for {query!r}")
-    _wait(driver, lambda d: d.execute_script("return document.body.getAttribute('aria-busy')")
-          == "false", "the page stayed busy")
+    _wait(
+        driver,
+        lambda d: _by_id(d, "results").is_displayed() or _by_id(d, "error").is_displayed(),
+        f"no results or error for {query!r}",
+    )
+    _wait(
+        driver,
+        lambda d: d.execute_script("return document.body.getAttribute('aria-busy')") == "false",
+        "the page stayed busy",
+    )
     return [
         {
             "title": item.find_element("css selector", ".result-link").text,
@@ -210,7 +236,8 @@ def _problems(driver) -> list[str]:
     Failed requests (the 401 before a key is given) are logged too; they are expected.
     """
     return [
-        e["message"] for e in driver.get_log("browser")
+        e["message"]
+        for e in driver.get_log("browser")
         if e["level"] == "SEVERE" and "Failed to load resource" not in e["message"]
     ]
 
@@ -255,15 +282,20 @@ def test_search_results_and_source_link_in_chromium(site: dict, browser) -> None
     driver = browser
     _open(driver, site, None)
     # No key yet: the API says 401 and the page asks for one, with the focus on the field.
-    _wait(driver, lambda d: _by_id(d, "key-panel").is_displayed(),
-          "the key field did not appear after a 401")
+    _wait(
+        driver,
+        lambda d: _by_id(d, "key-panel").is_displayed(),
+        "the key field did not appear after a 401",
+    )
     assert driver.switch_to.active_element.get_attribute("id") == "key"
     from selenium.webdriver.common.keys import Keys
 
     _by_id(driver, "key").send_keys(site["keys"]["staff"], Keys.ENTER)
     _wait(driver, lambda d: not _by_id(d, "key-panel").is_displayed(), "the key was not taken")
-    assert driver.execute_script("return sessionStorage.getItem('sounding.key')") \
+    assert (
+        driver.execute_script("return sessionStorage.getItem('sounding.key')")
         == site["keys"]["staff"]
+    )
     assert driver.switch_to.active_element.get_attribute("id") == "q"
 
     results = _search(driver, "unbolting the reservoir valve flange", mode="lexical")
@@ -289,7 +321,9 @@ def test_search_results_and_source_link_in_chromium(site: dict, browser) -> None
     assert driver.switch_to.active_element == target[0]
     assert driver.execute_script(
         "const r = arguments[0].getBoundingClientRect();"
-        "return r.top >= 0 && r.bottom <= window.innerHeight;", target[0])
+        "return r.top >= 0 && r.bottom <= window.innerHeight;",
+        target[0],
+    )
     original = _by_id(driver, "original")
     assert original.get_attribute("href") == "https://wiki.example.org/runbooks/reservoir-valve"
     _screenshot(driver, "document")
@@ -297,8 +331,11 @@ def test_search_results_and_source_link_in_chromium(site: dict, browser) -> None
     # Back returns to the same results.
     _by_id(driver, "back").click()
     _wait(driver, lambda d: _by_id(d, "results").is_displayed(), "Back did not show results")
-    _wait(driver, lambda d: len(_css(d, "#result-list .result")) == len(results),
-          "Back showed other results")
+    _wait(
+        driver,
+        lambda d: len(_css(d, "#result-list .result")) == len(results),
+        "Back showed other results",
+    )
     assert _problems(driver) == []
 
 
@@ -352,8 +389,7 @@ def test_restricted_document_hidden_without_its_group(site: dict, browser) -> No
 
 def test_collection_filter_limits_results(site: dict, browser) -> None:
     _open(browser, site, "staff")
-    results = _search(browser, "zebracorn kiosk valve pump", mode="lexical",
-                      collection="handbook")
+    results = _search(browser, "zebracorn kiosk valve pump", mode="lexical", collection="handbook")
     titles = {r["title"] for r in results}
     assert titles and titles <= {"Kiosk printer notes", "Zebracorn mascot"}
     assert "collection=handbook" in browser.current_url
@@ -376,7 +412,8 @@ def test_keyboard_only_search_and_open(site: dict, browser) -> None:
         pytest.fail("the first result link is not reachable with Tab")
     outline = browser.execute_script(
         "const s = getComputedStyle(document.activeElement);"
-        "return [s.outlineStyle, parseFloat(s.outlineWidth)];")
+        "return [s.outlineStyle, parseFloat(s.outlineWidth)];"
+    )
     assert outline[0] != "none" and outline[1] >= 2, f"focus is not visible: {outline}"
     ActionChains(browser).send_keys(Keys.ENTER).perform()
     _wait(browser, lambda d: _by_id(d, "document").is_displayed(), "Enter did not open it")
@@ -389,8 +426,9 @@ def test_errors_are_explained(site: dict, browser) -> None:
     error = _by_id(browser, "error").text
     assert error.startswith("The service could not take this query") and "200" in error
     # 401: a wrong key brings the key field back, saying the key was not accepted.
-    browser.execute_script("sessionStorage.setItem('sounding.key', 'snd_000000000000_' + "
-                           "'x'.repeat(43))")
+    browser.execute_script(
+        "sessionStorage.setItem('sounding.key', 'snd_000000000000_' + 'x'.repeat(43))"
+    )
     browser.get(site["url"] + "/#q=valve&mode=lexical")
     _wait(browser, lambda d: _by_id(d, "error").is_displayed(), "no error for a bad key")
     assert "access key was not accepted" in _by_id(browser, "error").text
@@ -403,7 +441,8 @@ def test_readable_on_a_phone(site: dict, browser) -> None:
         _open(browser, site, "staff")
         _search(browser, "reservoir valve pressure gauge outlet", mode="lexical")
         widths = browser.execute_script(
-            "return [document.documentElement.scrollWidth, document.documentElement.clientWidth]")
+            "return [document.documentElement.scrollWidth, document.documentElement.clientWidth]"
+        )
         assert widths[0] <= widths[1], f"the page scrolls sideways on a phone: {widths}"
         box = _by_id(browser, "q").rect
         assert box["width"] >= 200 and box["height"] >= 40
@@ -412,12 +451,11 @@ def test_readable_on_a_phone(site: dict, browser) -> None:
         browser.set_window_size(1200, 900)
 
 
-def test_no_index_is_explained_and_keys_may_be_off_on_loopback(
-    tmp_path: Path, browser
-) -> None:
+def test_no_index_is_explained_and_keys_may_be_off_on_loopback(tmp_path: Path, browser) -> None:
     """503 from a service with no index yet; with require_keys off, no key field at all."""
-    settings = ServiceSettings(index_dir=tmp_path / "empty", require_keys=False,
-                               reload_check_seconds=0)
+    settings = ServiceSettings(
+        index_dir=tmp_path / "empty", require_keys=False, reload_check_seconds=0
+    )
     with running(create_app(settings, embedder=HashingEmbedder(32, seed=3))) as url:
         browser.get(url + "/")
         browser.execute_script("sessionStorage.clear()")

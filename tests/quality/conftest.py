@@ -22,8 +22,8 @@ _REPO = Path(__file__).resolve().parents[2]
 if str(_REPO) not in sys.path:  # `tests` is not a package pytest puts on sys.path
     sys.path.insert(0, str(_REPO))
 
-from indexer.build import RefreshReport, refresh_index  # noqa: E402
-from indexer.evaluation import (  # noqa: E402
+from sounding.indexer.build import RefreshReport, refresh_index  # noqa: E402
+from sounding.indexer.evaluation import (  # noqa: E402
     evaluate,
     find_corpus,
     mean,
@@ -31,9 +31,10 @@ from indexer.evaluation import (  # noqa: E402
     read_queries,
     run_from_rankings,
 )
-from indexer.search import Searcher  # noqa: E402
-from indexer.settings import IndexSettings  # noqa: E402
-from indexer.store import IndexReader  # noqa: E402
+from sounding.indexer.search import Searcher  # noqa: E402
+from sounding.indexer.settings import IndexSettings  # noqa: E402
+from sounding.indexer.store import IndexReader  # noqa: E402
+
 from tests.conftest import BENCHMARKS_DIR, REPO  # noqa: E402
 
 MEASURES = ("ndcg_cut_10", "recall_100", "recip_rank_10", "map")
@@ -169,9 +170,9 @@ class Benchmarks:
         started = time.monotonic()
         # Through the embedder, not its model: float32 unit rows whatever the precision
         # (a bf16 model's own encode returns bf16, whose scores would tie in the top 100).
-        doc_emb = torch.from_numpy(self._embedder.encode(
-            [f"{r.get('title', '')} {r.get('text', '')}" for r in records]
-        ))
+        doc_emb = torch.from_numpy(
+            self._embedder.encode([f"{r.get('title', '')} {r.get('text', '')}" for r in records])
+        )
         query_emb = torch.from_numpy(self._embedder.encode(texts))
         hits = util.semantic_search(query_emb, doc_emb, top_k=DEPTH)
         reference_seconds = time.monotonic() - started

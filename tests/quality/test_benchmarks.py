@@ -19,8 +19,11 @@ def test_index_holds_every_document_in_whole_chunks(benchmark, real_embedder) ->
     assert real_embedder.max_tokens == MAX_SEQ_LENGTH
     records = read_corpus(benchmark.corpus)
     # Records with neither title nor text (Cranfield has two) have nothing to index.
-    empty = {str(r["_id"]) for r in records if not (r.get("title") or "").strip()
-             and not (r.get("text") or "").strip()}
+    empty = {
+        str(r["_id"])
+        for r in records
+        if not (r.get("title") or "").strip() and not (r.get("text") or "").strip()
+    }
     skipped = benchmark.report.skipped
     assert all(s.reason == "no text" for s in skipped), skipped[:3]
     assert len(skipped) == len(empty)

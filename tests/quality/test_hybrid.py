@@ -14,11 +14,11 @@ from pathlib import Path
 
 import pytest
 import pytrec_eval
+from sounding.indexer.evaluation import mean, read_qrels, read_queries, read_run, run_from_rankings
+from sounding.indexer.experiment import score_run
+from sounding.indexer.search import Searcher
+from sounding.indexer.store import IndexReader
 
-from indexer.evaluation import mean, read_qrels, read_queries, read_run, run_from_rankings
-from indexer.experiment import score_run
-from indexer.search import Searcher
-from indexer.store import IndexReader
 from tests.conftest import BENCHMARKS_DIR
 
 pytestmark = pytest.mark.slow
@@ -40,14 +40,20 @@ def bm25s_means(name: str) -> dict[str, float]:
     stemmer = Stemmer.Stemmer("english")
     retriever = bm25s.BM25()
     retriever.index(
-        bm25s.tokenize([f"{r.get('title', '')} {r.get('text', '')}" for r in records],
-                       stopwords="en", stemmer=stemmer, show_progress=False),
+        bm25s.tokenize(
+            [f"{r.get('title', '')} {r.get('text', '')}" for r in records],
+            stopwords="en",
+            stemmer=stemmer,
+            show_progress=False,
+        ),
         show_progress=False,
     )
     docs, scores = retriever.retrieve(
-        bm25s.tokenize([queries[q] for q in qids], stopwords="en", stemmer=stemmer,
-                       show_progress=False),
-        k=100, show_progress=False,
+        bm25s.tokenize(
+            [queries[q] for q in qids], stopwords="en", stemmer=stemmer, show_progress=False
+        ),
+        k=100,
+        show_progress=False,
     )
     run = {
         q: {str(records[i]["_id"]): float(s) for i, s in zip(docs[n], scores[n], strict=True)}
@@ -108,10 +114,23 @@ def test_eval_command_json_and_run_file(benchmarks, tmp_path: Path) -> None:
     bench = benchmarks[name]
     run_file = tmp_path / "hybrid.run"
     proc = subprocess.run(
-        [sys.executable, "-m", "service.cli", "eval", str(BENCHMARKS_DIR / name),
-         "--index", str(bench.index_dir), "--mode", "hybrid", "--json",
-         "--run-out", str(run_file)],
-        capture_output=True, text=True, timeout=900,
+        [
+            sys.executable,
+            "-m",
+            "sounding.cli",
+            "eval",
+            str(BENCHMARKS_DIR / name),
+            "--index",
+            str(bench.index_dir),
+            "--mode",
+            "hybrid",
+            "--json",
+            "--run-out",
+            str(run_file),
+        ],
+        capture_output=True,
+        text=True,
+        timeout=900,
     )
     assert proc.returncode == 0, proc.stderr
     out = json.loads(proc.stdout)

@@ -7,16 +7,15 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
-from indexer.access import AccessRules, may_read, parse_groups, parse_tags
-from indexer.build import delete_document, push_document, refresh_index
-from indexer.embedding import HashingEmbedder
-from indexer.errors import IndexLockedError, LoadError, SettingsError
-from indexer.loaders import parse_document
-from indexer.lock import IndexLock
-from indexer.search import MODES, Searcher, SearchFilter
-from indexer.settings import IndexSettings
-from indexer.store import IndexReader
+from sounding.indexer.access import AccessRules, may_read, parse_groups, parse_tags
+from sounding.indexer.build import delete_document, push_document, refresh_index
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.indexer.errors import IndexLockedError, LoadError, SettingsError
+from sounding.indexer.loaders import parse_document
+from sounding.indexer.lock import IndexLock
+from sounding.indexer.search import MODES, Searcher, SearchFilter
+from sounding.indexer.settings import IndexSettings
+from sounding.indexer.store import IndexReader
 
 PAGES = {
     "hr/salaries.md": "---\ntags: [Pay, hr]\n---\n# Salary bands\n\nPump engineers earn band C.\n",
@@ -25,8 +24,12 @@ PAGES = {
     "ops/secret.md": "---\ngroups: [security]\n---\n# Pump alarm codes\n\nThe pump code is 4471.\n",
     "public.txt": "Pump open day\n\nVisitors may see the pump house on Sundays.\n",
 }
-RULES = {"restrict": [{"under": "hr/", "groups": ["hr"]},
-                      {"under": "hr/leave", "groups": ["hr", "staff"]}]}
+RULES = {
+    "restrict": [
+        {"under": "hr/", "groups": ["hr"]},
+        {"under": "hr/leave", "groups": ["hr", "staff"]},
+    ]
+}
 
 
 def write(root: Path, pages: dict[str, str]) -> None:
@@ -68,8 +71,9 @@ def test_groups_parse_to_sorted_unique_names(value: object, expected: tuple[str,
     assert parse_groups(value, "x") == expected
 
 
-@pytest.mark.parametrize("value", [["../hr"], ["a b"], ["-x"], [""], [None], [{"a": 1}], 3.5,
-                                   ["x" * 65], ["hr;drop"]])
+@pytest.mark.parametrize(
+    "value", [["../hr"], ["a b"], ["-x"], [""], [None], [{"a": 1}], 3.5, ["x" * 65], ["hr;drop"]]
+)
 def test_invalid_groups_are_refused_with_the_value(value: object) -> None:
     with pytest.raises(ValueError, match="group|groups must"):
         parse_groups(value, "front matter")
@@ -94,8 +98,9 @@ def test_tags_are_normalised(value: object, expected: tuple[str, ...]) -> None:
         (("hr", "ops"), frozenset({"ops"}), True),
     ],
 )
-def test_may_read(doc_groups: tuple[str, ...], caller: frozenset[str] | None,
-                  allowed: bool) -> None:
+def test_may_read(
+    doc_groups: tuple[str, ...], caller: frozenset[str] | None, allowed: bool
+) -> None:
     assert may_read(doc_groups, caller) is allowed
 
 
@@ -114,8 +119,14 @@ def test_may_read(doc_groups: tuple[str, ...], caller: frozenset[str] | None,
 def test_rules_and_front_matter_decide_groups(
     collection: str, doc_id: str, metadata: dict, expected: tuple[str, ...]
 ) -> None:
-    rules = AccessRules.from_data({"restrict": [*RULES["restrict"], {
-        "under": "fin/", "collection": "books", "groups": ["finance"]}]})
+    rules = AccessRules.from_data(
+        {
+            "restrict": [
+                *RULES["restrict"],
+                {"under": "fin/", "collection": "books", "groups": ["finance"]},
+            ]
+        }
+    )
     assert rules.groups_for(collection, doc_id, metadata) == expected
 
 
@@ -126,10 +137,15 @@ def test_invalid_front_matter_groups_fail_closed() -> None:
 
 @pytest.mark.parametrize(
     "data",
-    [["under"], {"rules": []}, {"restrict": {"under": "x"}}, {"restrict": [{"under": 1}]},
-     {"restrict": [{"under": "x", "groups": []}]}, {"restrict": [{"under": "x", "groups": ["a"],
-                                                                   "extra": 1}]},
-     {"restrict": [{"under": "x", "groups": ["bad name"]}]}],
+    [
+        ["under"],
+        {"rules": []},
+        {"restrict": {"under": "x"}},
+        {"restrict": [{"under": 1}]},
+        {"restrict": [{"under": "x", "groups": []}]},
+        {"restrict": [{"under": "x", "groups": ["a"], "extra": 1}]},
+        {"restrict": [{"under": "x", "groups": ["bad name"]}]},
+    ],
 )
 def test_bad_rules_are_a_settings_error(data: object) -> None:
     with pytest.raises(SettingsError):
@@ -160,8 +176,14 @@ def test_documents_carry_groups_and_tags(wiki) -> None:
     assert reader.restricted
 
 
-CALLERS = [None, frozenset(), frozenset({"hr"}), frozenset({"staff"}),
-           frozenset({"security", "staff"}), frozenset({"nobody"})]
+CALLERS = [
+    None,
+    frozenset(),
+    frozenset({"hr"}),
+    frozenset({"staff"}),
+    frozenset({"security", "staff"}),
+    frozenset({"nobody"}),
+]
 
 
 @pytest.mark.parametrize(("groups", "mode"), list(itertools.product(CALLERS, MODES)))
@@ -184,8 +206,9 @@ def test_search_never_returns_what_the_caller_may_not_read(wiki, groups, mode) -
 def test_filter_applies_before_the_top_k_cut(tmp_path: Path) -> None:
     """Many restricted near-duplicates must not crowd out the one readable answer."""
     root = tmp_path / "w"
-    pages = {f"hr/p{i}.md": "---\ngroups: [hr]\n---\n# Pump\n\npump pump pump valve\n"
-             for i in range(60)}
+    pages = {
+        f"hr/p{i}.md": "---\ngroups: [hr]\n---\n# Pump\n\npump pump pump valve\n" for i in range(60)
+    }
     pages["open.md"] = "# Pump\n\npump valve\n"
     write(root, pages)
     settings = IndexSettings(index_dir=tmp_path / "i")
@@ -226,8 +249,9 @@ def test_filters(wiki, where: SearchFilter, expected: set[str]) -> None:
 def test_source_prefix_matches_the_source_path_too(wiki) -> None:
     root, settings, embedder = wiki
     searcher = Searcher(IndexReader(settings.index_dir), embedder)
-    hits = searcher.search("pump", 20, mode="dense",
-                           where=SearchFilter(source_prefix=str(root / "ops")))
+    hits = searcher.search(
+        "pump", 20, mode="dense", where=SearchFilter(source_prefix=str(root / "ops"))
+    )
     assert {h.document_id for h in hits} == {"ops/pump.md", "ops/secret.md"}
 
 
@@ -286,27 +310,42 @@ def test_bad_groups_skip_the_file_with_a_reason(tmp_path: Path) -> None:
 
 
 def _doc(doc_id: str, text: str, kind: str = "markdown"):
-    return parse_document(text.encode(), kind, doc_id=doc_id, name=doc_id, source=f"api:{doc_id}",
-                          modified=1.7e9)
+    return parse_document(
+        text.encode(), kind, doc_id=doc_id, name=doc_id, source=f"api:{doc_id}", modified=1.7e9
+    )
 
 
 def test_push_then_delete(wiki) -> None:
     _, settings, embedder = wiki
     before = IndexReader(settings.index_dir).generation
-    r = push_document(settings, embedder, _doc("api/new.md", "# Sluice\n\nSluice gate notes.\n"),
-                      "api", tags=("gates",))
+    r = push_document(
+        settings,
+        embedder,
+        _doc("api/new.md", "# Sluice\n\nSluice gate notes.\n"),
+        "api",
+        tags=("gates",),
+    )
     assert r.action == "added" and r.generation == before + 1 and r.chunks_embedded == r.chunks
     reader = IndexReader(settings.index_dir)
     hits = Searcher(reader, embedder).search("sluice gate", 1, mode="lexical")
     assert hits[0].document_id == "api/new.md"
     assert reader.document("api/new.md").tags == ("gates",)
-    again = push_document(settings, embedder,
-                          _doc("api/new.md", "# Sluice\n\nSluice gate notes.\n"), "api",
-                          tags=("gates",))
+    again = push_document(
+        settings,
+        embedder,
+        _doc("api/new.md", "# Sluice\n\nSluice gate notes.\n"),
+        "api",
+        tags=("gates",),
+    )
     assert again.action == "unchanged" and again.generation == r.generation
-    relabel = push_document(settings, embedder,
-                            _doc("api/new.md", "# Sluice\n\nSluice gate notes.\n"), "api",
-                            groups=("ops",), tags=("gates",))
+    relabel = push_document(
+        settings,
+        embedder,
+        _doc("api/new.md", "# Sluice\n\nSluice gate notes.\n"),
+        "api",
+        groups=("ops",),
+        tags=("gates",),
+    )
     assert relabel.action == "updated" and relabel.chunks_embedded == 0
     assert IndexReader(settings.index_dir).document("api/new.md").groups == ("ops",)
     gone = delete_document(settings, embedder, "api/new.md")
@@ -324,8 +363,7 @@ def test_push_into_another_collection_is_refused(wiki) -> None:
 def test_push_waits_for_the_lock_then_gives_up(wiki) -> None:
     _, settings, embedder = wiki
     with IndexLock(settings.index_dir), pytest.raises(IndexLockedError):
-        push_document(settings, embedder, _doc("api/x.md", "# x\n\ny\n"), "api",
-                      wait_seconds=0.2)
+        push_document(settings, embedder, _doc("api/x.md", "# x\n\ny\n"), "api", wait_seconds=0.2)
     assert IndexReader(settings.index_dir).document("api/x.md") is None
 
 
@@ -336,7 +374,7 @@ def test_unusable_pushed_bytes(kind: str, data: str) -> None:
 
 
 def test_filter_cache_is_bounded_by_ids_held(wiki, monkeypatch: pytest.MonkeyPatch) -> None:
-    import indexer.store as store
+    import sounding.indexer.store as store
 
     _, settings, _ = wiki
     monkeypatch.setattr(store, "_FILTER_CACHE_IDS", 3)
@@ -368,6 +406,7 @@ def test_filtered_dense_search_on_an_ivf_index_fills_k_with_admitted_chunks(
     reader = IndexReader(settings.index_dir)
     assert reader.manifest.vectors["kind"] == "ivf"
     hits = Searcher(reader, embedder).search(
-        "pump w3 w7", 10, mode="dense", where=SearchFilter(groups=frozenset()))
+        "pump w3 w7", 10, mode="dense", where=SearchFilter(groups=frozenset())
+    )
     assert len(hits) == 10
     assert all(int(h.document_id[1:4]) % 20 == 0 for h in hits)

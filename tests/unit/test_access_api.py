@@ -13,12 +13,12 @@ from pathlib import Path
 
 import httpx
 import pytest
+from sounding.indexer.build import refresh_index
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.service.app import create_app
+from sounding.service.keys import KeyStore
+from sounding.service.settings import ServiceSettings
 
-from indexer.build import refresh_index
-from indexer.embedding import HashingEmbedder
-from service.app import create_app
-from service.keys import KeyStore
-from service.settings import ServiceSettings
 from tests.serving import running
 
 SECRET_ID = "hr/salary-bands.md"
@@ -26,10 +26,10 @@ SECRET_TITLE = "Confidential salary bands"
 MARKER = "zanzibarite"
 PAGES = {
     SECRET_ID: f"---\ntitle: {SECRET_TITLE}\ngroups: [hr]\ntags: [pay]\n---\n"
-               f"# {SECRET_TITLE}\n\nThe {MARKER} pump engineers earn band C.\n\n"
-               f"## Review\n\nBands change each April; {MARKER} review.\n",
+    f"# {SECRET_TITLE}\n\nThe {MARKER} pump engineers earn band C.\n\n"
+    f"## Review\n\nBands change each April; {MARKER} review.\n",
     "ops/pump.md": "---\ntags: [pay, runbook]\n---\n# Pump restart\n\nRestart the pump slowly; "
-                   "engineers watch the gauge.\n",
+    "engineers watch the gauge.\n",
     "public.txt": "Pump open day\n\nVisitors may see the pump house on Sundays.\n",
 }
 ON_BEHALF = "X-Sounding-On-Behalf-Of"
@@ -41,16 +41,20 @@ def server(tmp_path_factory: pytest.TempPathFactory):
     for rel, text in PAGES.items():
         (root / rel).parent.mkdir(parents=True, exist_ok=True)
         (root / rel).write_text(text)
-    settings = ServiceSettings(index_dir=root.parent / f"{root.name}-index",
-                               reload_check_seconds=0, push_wait_seconds=2)
+    settings = ServiceSettings(
+        index_dir=root.parent / f"{root.name}-index", reload_check_seconds=0, push_wait_seconds=2
+    )
     embedder = HashingEmbedder(32, seed=2)
     refresh_index([root], settings, embedder)
     keys = {}
     with KeyStore(settings.keys_file) as store:
         for name, scope, groups, act_for in [
-            ("reader", "read", "", False), ("ops", "read", "ops", False),
-            ("hr", "read", "hr", False), ("bot", "read", "ops", True),
-            ("writer", "write", "", False), ("hr-writer", "write", "hr", False),
+            ("reader", "read", "", False),
+            ("ops", "read", "ops", False),
+            ("hr", "read", "hr", False),
+            ("bot", "read", "ops", True),
+            ("writer", "write", "", False),
+            ("hr-writer", "write", "hr", False),
             ("admin", "admin", "", False),
         ]:
             keys[name] = store.create(name, scope, groups, act_for)[1]
@@ -71,16 +75,23 @@ def _chunk_id(url: str, keys: dict[str, str]) -> int:
 
 
 # Callers who may NOT read the restricted page: (key, on-behalf header).
-OUTSIDERS = [("reader", None), ("ops", None), ("bot", None), ("bot", ""), ("bot", "ops,it"),
-             ("writer", None), ("admin", None)]
+OUTSIDERS = [
+    ("reader", None),
+    ("ops", None),
+    ("bot", None),
+    ("bot", ""),
+    ("bot", "ops,it"),
+    ("writer", None),
+    ("admin", None),
+]
 QUERY = f"{MARKER} salary bands pump engineers"
 
 
 def _requests(url: str, chunk_id: int) -> list[tuple[str, str, dict | None]]:
     """(method, path, json) of every endpoint that could show the restricted page."""
     reqs: list[tuple[str, str, dict | None]] = [
-        ("POST", "/search", {"query": QUERY, "k": 50, "mode": mode}) for mode in
-        ("dense", "lexical", "hybrid")
+        ("POST", "/search", {"query": QUERY, "k": 50, "mode": mode})
+        for mode in ("dense", "lexical", "hybrid")
     ]
     reqs += [
         ("POST", "/search", {"query": QUERY, "k": 50, "tags": ["pay"]}),
@@ -107,8 +118,11 @@ def test_no_endpoint_reveals_the_restricted_page(server, who: str, on_behalf: st
         if path.startswith("/documents/") or path == "/feedback":
             # 404 with the very answer a page that does not exist gets: existence does not leak.
             assert r.status_code == 404, (path, r.status_code)
-            what = (f"chunk with id {chunk_id}" if body and "chunk_id" in body
-                    else f"document with id {SECRET_ID!r}")
+            what = (
+                f"chunk with id {chunk_id}"
+                if body and "chunk_id" in body
+                else f"document with id {SECRET_ID!r}"
+            )
             assert r.json() == {"detail": f"no {what} in the index"}
             continue
         assert r.status_code == 200, (path, r.status_code, r.text[:300])
@@ -126,9 +140,11 @@ def test_no_endpoint_reveals_the_restricted_page(server, who: str, on_behalf: st
 
 def test_counts_only_count_what_the_caller_may_read(server) -> None:
     url, keys, _ = server
+
     def counts(who: str, on_behalf: str | None = None) -> dict[str, int]:
         r = httpx.get(f"{url}/collections", headers=_auth(keys, who, on_behalf))
         return {c["name"]: c["documents"] for c in r.json()["collections"]}
+
     (name,) = counts("hr")
     assert counts("hr")[name] == 3
     assert counts("reader")[name] == 2
@@ -137,12 +153,16 @@ def test_counts_only_count_what_the_caller_may_read(server) -> None:
     assert httpx.get(f"{url}/health").json()["documents"] == 2
 
 
-@pytest.mark.parametrize(("who", "on_behalf"), [("hr", None), ("bot", "hr"), ("bot", "x,hr"),
-                                                ("hr-writer", None)])
+@pytest.mark.parametrize(
+    ("who", "on_behalf"), [("hr", None), ("bot", "hr"), ("bot", "x,hr"), ("hr-writer", None)]
+)
 def test_members_do_see_it(server, who: str, on_behalf: str | None) -> None:
     url, keys, _ = server
-    r = httpx.post(f"{url}/search", json={"query": QUERY, "k": 5, "mode": "lexical"},
-                   headers=_auth(keys, who, on_behalf))
+    r = httpx.post(
+        f"{url}/search",
+        json={"query": QUERY, "k": 5, "mode": "lexical"},
+        headers=_auth(keys, who, on_behalf),
+    )
     assert r.status_code == 200
     assert r.json()["results"][0]["document_id"] == SECRET_ID
     doc = httpx.get(f"{url}/documents/{SECRET_ID}", headers=_auth(keys, who, on_behalf))
@@ -151,21 +171,29 @@ def test_members_do_see_it(server, who: str, on_behalf: str | None) -> None:
 
 @pytest.mark.parametrize(
     ("method", "path", "body"),
-    [("POST", "/search", {"query": "pump"}), ("GET", "/documents/public.txt", None),
-     ("GET", "/collections", None), ("POST", "/feedback", {"query": "x", "document_id":
-                                                           "public.txt", "grade": 1}),
-     ("PUT", "/documents/api/x.md", {"text": "# X\n\nx\n"}), ("DELETE", "/documents/public.txt",
-                                                              None),
-     ("GET", "/metrics", None)],
+    [
+        ("POST", "/search", {"query": "pump"}),
+        ("GET", "/documents/public.txt", None),
+        ("GET", "/collections", None),
+        ("POST", "/feedback", {"query": "x", "document_id": "public.txt", "grade": 1}),
+        ("PUT", "/documents/api/x.md", {"text": "# X\n\nx\n"}),
+        ("DELETE", "/documents/public.txt", None),
+        ("GET", "/metrics", None),
+    ],
 )
-def test_every_endpoint_but_health_needs_a_key(server, method: str, path: str,
-                                                body: dict | None) -> None:
+def test_every_endpoint_but_health_needs_a_key(
+    server, method: str, path: str, body: dict | None
+) -> None:
     url, _, _ = server
     r = httpx.request(method, f"{url}{path}", json=body)
     assert r.status_code == 401
     assert r.headers["www-authenticate"].startswith("Bearer")  # RFC 6750 section 3
-    bad = httpx.request(method, f"{url}{path}", json=body,
-                        headers={"Authorization": "Bearer snd_000000000000_" + "A" * 43})
+    bad = httpx.request(
+        method,
+        f"{url}{path}",
+        json=body,
+        headers={"Authorization": "Bearer snd_000000000000_" + "A" * 43},
+    )
     assert bad.status_code == 401
     assert httpx.get(f"{url}/health").status_code == 200
 
@@ -179,8 +207,11 @@ def test_on_behalf_header_needs_the_act_for_right(server) -> None:
 @pytest.mark.parametrize("who", ["reader", "ops", "hr"])
 def test_read_keys_cannot_push_or_delete(server, who: str) -> None:
     url, keys, _ = server
-    put = httpx.put(f"{url}/documents/api/new.md", json={"text": "# New\n\nnew page\n"},
-                    headers=_auth(keys, who))
+    put = httpx.put(
+        f"{url}/documents/api/new.md",
+        json={"text": "# New\n\nnew page\n"},
+        headers=_auth(keys, who),
+    )
     assert put.status_code == 403 and "write" in put.json()["detail"]
     gone = httpx.delete(f"{url}/documents/public.txt", headers=_auth(keys, who))
     assert gone.status_code == 403
@@ -189,8 +220,11 @@ def test_read_keys_cannot_push_or_delete(server, who: str) -> None:
 def test_a_writer_outside_the_group_cannot_touch_the_restricted_page(server) -> None:
     url, keys, _ = server
     for r in (
-        httpx.put(f"{url}/documents/{SECRET_ID}", json={"text": "# Taken over\n\nmine\n"},
-                  headers=_auth(keys, "writer")),
+        httpx.put(
+            f"{url}/documents/{SECRET_ID}",
+            json={"text": "# Taken over\n\nmine\n"},
+            headers=_auth(keys, "writer"),
+        ),
         httpx.delete(f"{url}/documents/{SECRET_ID}", headers=_auth(keys, "writer")),
     ):
         assert r.status_code == 404 and MARKER not in r.text
@@ -201,14 +235,23 @@ def test_a_writer_outside_the_group_cannot_touch_the_restricted_page(server) -> 
 def test_push_is_searchable_when_the_call_returns_then_delete(server) -> None:
     url, keys, _ = server
     w = _auth(keys, "writer")
-    r = httpx.put(f"{url}/documents/api/sluice.md", headers=w, json={
-        "text": "# Sluice gates\n\nThe quernstone sluice opens at dawn.\n",
-        "tags": ["Gates"], "source": "https://wiki.example/sluice"})
+    r = httpx.put(
+        f"{url}/documents/api/sluice.md",
+        headers=w,
+        json={
+            "text": "# Sluice gates\n\nThe quernstone sluice opens at dawn.\n",
+            "tags": ["Gates"],
+            "source": "https://wiki.example/sluice",
+        },
+    )
     assert r.status_code == 200, r.text
     body = r.json()
     assert body["action"] == "added" and body["chunks_embedded"] == body["chunks"] >= 1
-    hits = httpx.post(f"{url}/search", headers=_auth(keys, "reader"),
-                      json={"query": "quernstone sluice", "mode": "lexical", "k": 1}).json()
+    hits = httpx.post(
+        f"{url}/search",
+        headers=_auth(keys, "reader"),
+        json={"query": "quernstone sluice", "mode": "lexical", "k": 1},
+    ).json()
     assert hits["results"][0]["document_id"] == "api/sluice.md"
     assert hits["generation"] == body["generation"]
     assert hits["results"][0]["collection"] == "pushed"
@@ -216,68 +259,117 @@ def test_push_is_searchable_when_the_call_returns_then_delete(server) -> None:
     doc = httpx.get(f"{url}/documents/api/sluice.md", headers=_auth(keys, "reader")).json()
     assert doc["tags"] == ["gates"]
     # Same content again: nothing to do, no new generation.
-    again = httpx.put(f"{url}/documents/api/sluice.md", headers=w, json={
-        "text": "# Sluice gates\n\nThe quernstone sluice opens at dawn.\n",
-        "tags": ["Gates"], "source": "https://wiki.example/sluice"}).json()
+    again = httpx.put(
+        f"{url}/documents/api/sluice.md",
+        headers=w,
+        json={
+            "text": "# Sluice gates\n\nThe quernstone sluice opens at dawn.\n",
+            "tags": ["Gates"],
+            "source": "https://wiki.example/sluice",
+        },
+    ).json()
     assert again["action"] == "unchanged" and again["generation"] == body["generation"]
     # Restrict it: readers outside the group lose it at once.
-    httpx.put(f"{url}/documents/api/sluice.md", headers=w, json={
-        "text": "# Sluice gates\n\nThe quernstone sluice opens at dawn.\n", "groups": ["hr"],
-        "source": "https://wiki.example/sluice"}).raise_for_status()
-    assert httpx.get(f"{url}/documents/api/sluice.md",
-                     headers=_auth(keys, "reader")).status_code == 404
-    assert httpx.get(f"{url}/documents/api/sluice.md",
-                     headers=_auth(keys, "hr")).status_code == 200
+    httpx.put(
+        f"{url}/documents/api/sluice.md",
+        headers=w,
+        json={
+            "text": "# Sluice gates\n\nThe quernstone sluice opens at dawn.\n",
+            "groups": ["hr"],
+            "source": "https://wiki.example/sluice",
+        },
+    ).raise_for_status()
+    assert (
+        httpx.get(f"{url}/documents/api/sluice.md", headers=_auth(keys, "reader")).status_code
+        == 404
+    )
+    assert httpx.get(f"{url}/documents/api/sluice.md", headers=_auth(keys, "hr")).status_code == 200
     # Writers outside the group can no longer see it, so cannot change or delete it.
     for who in ("writer", "admin"):
-        assert httpx.delete(f"{url}/documents/api/sluice.md",
-                            headers=_auth(keys, who)).status_code == 404
-        assert httpx.put(f"{url}/documents/api/sluice.md", headers=_auth(keys, who),
-                         json={"text": "# Mine\n\nmine\n"}).status_code == 404
+        assert (
+            httpx.delete(f"{url}/documents/api/sluice.md", headers=_auth(keys, who)).status_code
+            == 404
+        )
+        assert (
+            httpx.put(
+                f"{url}/documents/api/sluice.md",
+                headers=_auth(keys, who),
+                json={"text": "# Mine\n\nmine\n"},
+            ).status_code
+            == 404
+        )
     d = httpx.delete(f"{url}/documents/api/sluice.md", headers=_auth(keys, "hr-writer"))
     assert d.status_code == 200 and d.json()["action"] == "removed"
-    hits = httpx.post(f"{url}/search", headers=_auth(keys, "reader"),
-                      json={"query": "quernstone", "mode": "lexical"}).json()
+    hits = httpx.post(
+        f"{url}/search",
+        headers=_auth(keys, "reader"),
+        json={"query": "quernstone", "mode": "lexical"},
+    ).json()
     assert hits["results"] == []
 
 
 def test_upload_a_file_with_metadata(server) -> None:
     url, keys, _ = server
-    page = b"<html><head><title>Weir log</title></head><body><p>Weir level logged hourly by " \
-           b"the bargeman.</p></body></html>"
-    r = httpx.put(f"{url}/documents/api/weir.html", headers=_auth(keys, "writer"),
-                  files={"file": ("weir.html", page, "text/html")},
-                  data={"collection": "uploads", "tags": "weir, logs", "groups": "ops"})
+    page = (
+        b"<html><head><title>Weir log</title></head><body><p>Weir level logged hourly by "
+        b"the bargeman.</p></body></html>"
+    )
+    r = httpx.put(
+        f"{url}/documents/api/weir.html",
+        headers=_auth(keys, "writer"),
+        files={"file": ("weir.html", page, "text/html")},
+        data={"collection": "uploads", "tags": "weir, logs", "groups": "ops"},
+    )
     assert r.status_code == 200, r.text
     doc = httpx.get(f"{url}/documents/api/weir.html", headers=_auth(keys, "ops")).json()
     assert doc["title"] == "Weir log" and doc["collection"] == "uploads"
     assert doc["groups"] == ["ops"] and doc["tags"] == ["logs", "weir"]
     assert doc["kind"] == "html"
-    bad = httpx.put(f"{url}/documents/api/x.exe", headers=_auth(keys, "writer"),
-                    files={"file": ("x.exe", b"MZ", "application/octet-stream")})
+    bad = httpx.put(
+        f"{url}/documents/api/x.exe",
+        headers=_auth(keys, "writer"),
+        files={"file": ("x.exe", b"MZ", "application/octet-stream")},
+    )
     assert bad.status_code == 422 and ".exe" in bad.json()["detail"] or "x.exe" in bad.text
 
 
 @pytest.mark.parametrize(
     "doc_id",
-    ["../etc/passwd", "a/../b", "a//b", "/abs", "a/", "./a", "a\\b", "a\x00b", "a\nb",
-     "x" * 600, " lead", "a/ b"],
+    [
+        "../etc/passwd",
+        "a/../b",
+        "a//b",
+        "/abs",
+        "a/",
+        "./a",
+        "a\\b",
+        "a\x00b",
+        "a\nb",
+        "x" * 600,
+        " lead",
+        "a/ b",
+    ],
 )
 def test_unsafe_ids_are_refused(server, doc_id: str) -> None:
     url, keys, _ = server
     # Every byte percent-encoded, so the client cannot normalise "a/../b" away before sending.
     raw = "".join(f"%{b:02X}" for b in doc_id.encode())
-    r = httpx.put(f"{url}/documents/{raw}", json={"text": "# T\n\nt\n"},
-                  headers=_auth(keys, "writer"))
+    r = httpx.put(
+        f"{url}/documents/{raw}", json={"text": "# T\n\nt\n"}, headers=_auth(keys, "writer")
+    )
     assert r.status_code in (404, 414, 422), (doc_id, r.status_code)
     assert r.status_code != 200
 
 
 @pytest.mark.parametrize(
     ("body", "fragment"),
-    [({"text": ""}, "text"), ({"text": "x", "format": "exe"}, "format"),
-     ({"text": "x", "groups": ["not ok"]}, "group"), ({"text": "x", "extra": 1}, "extra"),
-     ({"text": "   "}, "no text")],
+    [
+        ({"text": ""}, "text"),
+        ({"text": "x", "format": "exe"}, "format"),
+        ({"text": "x", "groups": ["not ok"]}, "group"),
+        ({"text": "x", "extra": 1}, "extra"),
+        ({"text": "   "}, "no text"),
+    ],
 )
 def test_bad_pushes_are_422_with_a_reason(server, body: dict, fragment: str) -> None:
     url, keys, _ = server
@@ -287,18 +379,22 @@ def test_bad_pushes_are_422_with_a_reason(server, body: dict, fragment: str) -> 
 
 def test_push_into_a_folder_collection_conflicts(server) -> None:
     url, keys, _ = server
-    r = httpx.put(f"{url}/documents/ops/pump.md", json={"text": "# P\n\np\n"},
-                  headers=_auth(keys, "writer"))
+    r = httpx.put(
+        f"{url}/documents/ops/pump.md", json={"text": "# P\n\np\n"}, headers=_auth(keys, "writer")
+    )
     assert r.status_code == 409 and "belongs to collection" in r.json()["detail"]
 
 
 def test_push_while_a_reindex_holds_the_lock_is_503_with_retry_after(server) -> None:
-    from indexer.lock import IndexLock
+    from sounding.indexer.lock import IndexLock
 
     url, keys, settings = server
     with IndexLock(settings.index_dir):
-        r = httpx.put(f"{url}/documents/api/later.md", json={"text": "# L\n\nlater\n"},
-                      headers=_auth(keys, "writer"))
+        r = httpx.put(
+            f"{url}/documents/api/later.md",
+            json={"text": "# L\n\nlater\n"},
+            headers=_auth(keys, "writer"),
+        )
     assert r.status_code == 503 and r.headers["retry-after"] == "30"
     assert "being updated" in r.json()["detail"]
 
@@ -306,10 +402,12 @@ def test_push_while_a_reindex_holds_the_lock_is_503_with_retry_after(server) -> 
 def test_filters_narrow_search(server) -> None:
     url, keys, _ = server
     h = _auth(keys, "hr")
+
     def ids(**extra) -> set[str]:
         r = httpx.post(f"{url}/search", headers=h, json={"query": "pump", "k": 20, **extra})
         assert r.status_code == 200, r.text
         return {p["document_id"] for p in r.json()["results"]}
+
     assert ids(tags=["RUNBOOK"]) == {"ops/pump.md"}
     assert ids(source_prefix="hr/") == {SECRET_ID}
     assert ids(collections=["nothing"]) == set()
@@ -334,5 +432,4 @@ def test_anonymous_on_loopback_sees_only_unrestricted(tmp_path: Path) -> None:
         assert httpx.get(f"{url}/documents/{SECRET_ID}").status_code == 404
         r = httpx.post(f"{url}/search", json={"query": QUERY}, headers={ON_BEHALF: "hr"})
         assert r.status_code == 403  # anonymous callers cannot claim groups
-        assert json.loads(httpx.get(f"{url}/collections").text)["collections"][0]["documents"] \
-            == 2
+        assert json.loads(httpx.get(f"{url}/collections").text)["collections"][0]["documents"] == 2

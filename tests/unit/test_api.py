@@ -6,11 +6,11 @@ from pathlib import Path
 
 import httpx
 import pytest
+from sounding.indexer.build import refresh_index
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.service.app import create_app
+from sounding.service.settings import ServiceSettings
 
-from indexer.build import refresh_index
-from indexer.embedding import HashingEmbedder
-from service.app import create_app
-from service.settings import ServiceSettings
 from tests.serving import running
 
 PAGES = {
@@ -39,8 +39,11 @@ def write_pages(root: Path, pages: dict[str, str]) -> None:
 def wiki(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, ServiceSettings, HashingEmbedder]:
     root = tmp_path_factory.mktemp("wiki")
     write_pages(root, PAGES)
-    settings = ServiceSettings(require_keys=False,
-        index_dir=root.parent / f"{root.name}-index", max_k=20, max_query_chars=200,
+    settings = ServiceSettings(
+        require_keys=False,
+        index_dir=root.parent / f"{root.name}-index",
+        max_k=20,
+        max_query_chars=200,
         reload_check_seconds=0,
     )
     embedder = HashingEmbedder(32, seed=1)
@@ -99,9 +102,7 @@ def test_bad_search_requests_get_a_4xx_with_a_reason(base: str, body, status, re
     assert reason in r.json()["detail"]
 
 
-@pytest.mark.parametrize(
-    "raw", [b"{not json", b"", b"\xff\xfe", b'{"query": "a"' ]
-)
+@pytest.mark.parametrize("raw", [b"{not json", b"", b"\xff\xfe", b'{"query": "a"'])
 def test_malformed_json_is_a_422(base: str, raw: bytes) -> None:
     r = httpx.post(f"{base}/search", content=raw, headers={"content-type": "application/json"})
     assert r.status_code == 422
@@ -148,7 +149,9 @@ def test_running_service_switches_to_a_new_generation(tmp_path: Path) -> None:
     root = tmp_path / "wiki"
     write_pages(root, PAGES)
     settings = ServiceSettings(
-        require_keys=False, index_dir=tmp_path / "idx", reload_check_seconds=0,
+        require_keys=False,
+        index_dir=tmp_path / "idx",
+        reload_check_seconds=0,
     )
     embedder = HashingEmbedder(32, seed=1)
     refresh_index([root], settings, embedder)

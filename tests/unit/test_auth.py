@@ -17,11 +17,10 @@ import httpx
 import pytest
 from fastapi import FastAPI, Request
 from fastapi.testclient import TestClient
-
-from indexer.embedding import HashingEmbedder
-from indexer.errors import AccessError, SettingsError
-from service.app import create_app
-from service.auth import (
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.indexer.errors import AccessError, SettingsError
+from sounding.service.app import create_app
+from sounding.service.auth import (
     ANONYMOUS,
     ON_BEHALF_HEADER,
     AdminCaller,
@@ -31,8 +30,9 @@ from service.auth import (
     open_keys,
     require,
 )
-from service.keys import KeyStore
-from service.settings import ServiceSettings
+from sounding.service.keys import KeyStore
+from sounding.service.settings import ServiceSettings
+
 from tests.serving import running
 
 
@@ -167,8 +167,12 @@ def test_caller_carries_the_keys_own_groups(served) -> None:
 
 @pytest.mark.parametrize(
     ("value", "groups"),
-    [("hr,finance", ["finance", "hr"]), ("hr", ["hr"]), ("", []),
-     ("ops.oncall , HR_2,hr", ["HR_2", "hr", "ops.oncall"])],
+    [
+        ("hr,finance", ["finance", "hr"]),
+        ("hr", ["hr"]),
+        ("", []),
+        ("ops.oncall , HR_2,hr", ["HR_2", "hr", "ops.oncall"]),
+    ],
 )
 def test_act_for_key_takes_exactly_the_end_users_groups(served, value, groups) -> None:
     url, secrets, _ = served
@@ -322,8 +326,10 @@ def test_start_logs_warn_when_keys_are_required_but_none_exist(
 
 
 def test_the_real_app_opens_the_keys_store_in_its_lifespan(tmp_path: Path) -> None:
-    app = create_app(ServiceSettings(index_dir=tmp_path / "idx", reload_check_seconds=0),
-                     embedder=HashingEmbedder(16))
+    app = create_app(
+        ServiceSettings(index_dir=tmp_path / "idx", reload_check_seconds=0),
+        embedder=HashingEmbedder(16),
+    )
     with TestClient(app) as client:
         assert isinstance(client.app.state.keys, KeyStore)
         assert client.get("/health").status_code == 200
@@ -357,7 +363,9 @@ def test_openapi_shows_the_bearer_scheme_and_the_on_behalf_header(tmp_path: Path
     app = tiny_app(ServiceSettings(index_dir=tmp_path))
     schema = app.openapi()
     assert schema["components"]["securitySchemes"]["APIKey"] == {
-        "type": "http", "scheme": "bearer", "bearerFormat": "snd_<id>_<secret>",
+        "type": "http",
+        "scheme": "bearer",
+        "bearerFormat": "snd_<id>_<secret>",
         "description": "An API key from `sounding keys create`.",
     }
     params = schema["paths"]["/read"]["get"]["parameters"]

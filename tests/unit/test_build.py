@@ -5,12 +5,11 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
-
-from indexer.build import refresh_index
-from indexer.embedding import HashingEmbedder
-from indexer.errors import IndexMismatchError, SettingsError
-from indexer.settings import IndexSettings
-from indexer.store import IndexReader
+from sounding.indexer.build import refresh_index
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.indexer.errors import IndexMismatchError, SettingsError
+from sounding.indexer.settings import IndexSettings
+from sounding.indexer.store import IndexReader
 
 LONG = "\n\n".join(
     f"Paragraph {i} about sluice gates and tide tables number {i}." for i in range(80)

@@ -8,13 +8,12 @@ from collections.abc import Callable
 from pathlib import Path
 
 import pytest
-
-from indexer.build import refresh_index
-from indexer.check import check_index, repair_index
-from indexer.embedding import HashingEmbedder
-from indexer.search import Searcher
-from indexer.settings import IndexSettings
-from indexer.store import DATABASE, IndexReader
+from sounding.indexer.build import refresh_index
+from sounding.indexer.check import check_index, repair_index
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.indexer.search import Searcher
+from sounding.indexer.settings import IndexSettings
+from sounding.indexer.store import DATABASE, IndexReader
 
 
 @pytest.fixture(scope="module")
@@ -49,19 +48,26 @@ def _sql(idx: Path, statement: str) -> None:
 
 DAMAGE: dict[str, tuple[Callable[[Path], None], str]] = {
     "vector file deleted": (lambda i: (i / "vectors-1.faiss").unlink(), "missing or unreadable"),
-    "vector file garbled": (lambda i: (i / "vectors-1.faiss").write_bytes(b"junk"),
-                            "missing or unreadable"),
-    "fts row deleted": (lambda i: _sql(i, "DELETE FROM chunks_fts WHERE rowid = "
-                                          "(SELECT min(id) FROM chunks)"),
-                        "lexical (FTS5) index lacks 1 chunks"),
-    "fts row extra": (lambda i: _sql(i, "INSERT INTO chunks_fts (rowid, body) "
-                                        "VALUES (99999, 'ghost')"),
-                      "holds 1 entries with no chunk"),
-    "chunks of a document gone": (lambda i: _sql(i, "DELETE FROM chunks WHERE document_id "
-                                                    "= 'p3.md'"),
-                                  "1 documents have no chunks"),
-    "temp file left": (lambda i: (i / ".vectors-2.faiss.tmp").write_bytes(b"half"),
-                       "left over by an interrupted run"),
+    "vector file garbled": (
+        lambda i: (i / "vectors-1.faiss").write_bytes(b"junk"),
+        "missing or unreadable",
+    ),
+    "fts row deleted": (
+        lambda i: _sql(i, "DELETE FROM chunks_fts WHERE rowid = (SELECT min(id) FROM chunks)"),
+        "lexical (FTS5) index lacks 1 chunks",
+    ),
+    "fts row extra": (
+        lambda i: _sql(i, "INSERT INTO chunks_fts (rowid, body) VALUES (99999, 'ghost')"),
+        "holds 1 entries with no chunk",
+    ),
+    "chunks of a document gone": (
+        lambda i: _sql(i, "DELETE FROM chunks WHERE document_id = 'p3.md'"),
+        "1 documents have no chunks",
+    ),
+    "temp file left": (
+        lambda i: (i / ".vectors-2.faiss.tmp").write_bytes(b"half"),
+        "left over by an interrupted run",
+    ),
 }
 
 

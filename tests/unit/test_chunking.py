@@ -5,19 +5,23 @@ from __future__ import annotations
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
-from indexer.chunking import SPECIAL_TOKENS, ChunkSettings, chunk_document, window_bounds
-from indexer.documents import Document, Section
-from indexer.embedding import WhitespaceTokenizer
-from indexer.errors import SettingsError
+from sounding.indexer.chunking import SPECIAL_TOKENS, ChunkSettings, chunk_document, window_bounds
+from sounding.indexer.documents import Document, Section
+from sounding.indexer.embedding import WhitespaceTokenizer
+from sounding.indexer.errors import SettingsError
 
 TOK = WhitespaceTokenizer()
 
 
 def doc(*sections: Section, title: str = "Pump station handbook") -> Document:
     return Document(
-        id="d.md", title=title, source="/x/d.md", modified=0.0, content_hash="h",
-        kind="markdown", sections=tuple(sections),
+        id="d.md",
+        title=title,
+        source="/x/d.md",
+        modified=0.0,
+        content_hash="h",
+        kind="markdown",
+        sections=tuple(sections),
     )
 
 

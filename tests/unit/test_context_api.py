@@ -4,13 +4,13 @@ from __future__ import annotations
 
 import httpx
 import pytest
+from sounding.indexer.build import refresh_index
+from sounding.indexer.embedding import HashingEmbedder, WhitespaceTokenizer
+from sounding.indexer.grounding import token_counter
+from sounding.service.app import create_app
+from sounding.service.keys import KeyStore
+from sounding.service.settings import ServiceSettings
 
-from indexer.build import refresh_index
-from indexer.embedding import HashingEmbedder, WhitespaceTokenizer
-from indexer.grounding import token_counter
-from service.app import create_app
-from service.keys import KeyStore
-from service.settings import ServiceSettings
 from tests.serving import running
 
 # One long section (several windows at 64 word pieces), short ones, and a restricted page.
@@ -39,16 +39,25 @@ def service(tmp_path_factory: pytest.TempPathFactory):
         (root / rel).parent.mkdir(parents=True, exist_ok=True)
         (root / rel).write_text(text)
     settings = ServiceSettings(
-        index_dir=root.parent / f"{root.name}-index", max_query_chars=200,
-        reload_check_seconds=0, chunk_tokens=64, chunk_overlap=16,
-        max_context_tokens=3000, max_context_chars=12000,
+        index_dir=root.parent / f"{root.name}-index",
+        max_query_chars=200,
+        reload_check_seconds=0,
+        chunk_tokens=64,
+        chunk_overlap=16,
+        max_context_tokens=3000,
+        max_context_chars=12000,
     )
     embedder = HashingEmbedder(32, seed=3)
     refresh_index([root], settings, embedder)
     store = KeyStore(settings.keys_file)
-    keys = {name: store.create(name, "read", groups, act_for=act_for)[1]
-            for name, groups, act_for in [("reader", None, False), ("hr-reader", "hr", False),
-                                          ("bot", None, True)]}
+    keys = {
+        name: store.create(name, "read", groups, act_for=act_for)[1]
+        for name, groups, act_for in [
+            ("reader", None, False),
+            ("hr-reader", "hr", False),
+            ("bot", None, True),
+        ]
+    }
     store.close()
     with running(create_app(settings, embedder=embedder)) as url:
         yield url, keys
@@ -56,8 +65,9 @@ def service(tmp_path_factory: pytest.TempPathFactory):
 
 def ask(service, body, key: str = "reader", **headers: str) -> httpx.Response:
     url, keys = service
-    return httpx.post(f"{url}/context", json=body,
-                      headers={"Authorization": f"Bearer {keys[key]}", **headers})
+    return httpx.post(
+        f"{url}/context", json=body, headers={"Authorization": f"Bearer {keys[key]}", **headers}
+    )
 
 
 def test_context_fits_the_budget_and_cites_every_passage(service) -> None:
@@ -78,8 +88,14 @@ def test_context_fits_the_budget_and_cites_every_passage(service) -> None:
 
 
 def test_adjacent_windows_join_without_repeating_their_overlap(service) -> None:
-    body = ask(service, {"query": "inspect impeller blade pitting wear figure",
-                         "budget": 3000, "max_per_document": 1}).json()
+    body = ask(
+        service,
+        {
+            "query": "inspect impeller blade pitting wear figure",
+            "budget": 3000,
+            "max_per_document": 1,
+        },
+    ).json()
     pump = [p for p in body["passages"] if p["document_id"] == "runbooks/pump.md"]
     assert len(pump) == 1  # the cap; the other windows joined it
     (p,) = pump
@@ -98,8 +114,7 @@ def test_per_document_cap(service) -> None:
 @pytest.mark.parametrize("unit", ["tokens", "chars"])
 @pytest.mark.parametrize("budget", [1, 12, 40, 90, 333, 2500])
 def test_never_over_budget(service, unit: str, budget: int) -> None:
-    r = ask(service, {"query": "impeller gasket kiosk printer", "budget": budget,
-                      "unit": unit})
+    r = ask(service, {"query": "impeller gasket kiosk printer", "budget": budget, "unit": unit})
     assert r.status_code == 200
     body = r.json()
     count = COUNT if unit == "tokens" else len
@@ -120,8 +135,9 @@ def test_characters_on_request(service) -> None:
 
 
 def test_filters_narrow_the_passages(service) -> None:
-    body = ask(service, {"query": "impeller printer", "budget": 2000,
-                         "source_prefix": "notes/"}).json()
+    body = ask(
+        service, {"query": "impeller printer", "budget": 2000, "source_prefix": "notes/"}
+    ).json()
     assert {p["document_id"] for p in body["passages"]} == {"notes/kiosk.txt"}
 
 

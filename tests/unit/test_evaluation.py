@@ -8,9 +8,8 @@ import math
 from pathlib import Path
 
 import pytest
-
-from indexer.errors import SettingsError
-from indexer.evaluation import (
+from sounding.indexer.errors import SettingsError
+from sounding.indexer.evaluation import (
     evaluate,
     find_corpus,
     mean,
@@ -135,12 +134,17 @@ def test_run_file_round_trip(tmp_path: Path) -> None:
     write_run(RUN, path, tag="test-run")
     assert read_run(path) == RUN  # scores survive exactly (shortest round-trip repr)
     lines = [line.split() for line in path.read_text(encoding="utf-8").splitlines()]
-    assert all(len(fields) == 6 and fields[1] == "Q0" and fields[5] == "test-run"
-               for fields in lines)
+    assert all(
+        len(fields) == 6 and fields[1] == "Q0" and fields[5] == "test-run" for fields in lines
+    )
     assert [(f[0], f[2], f[3]) for f in lines] == [
-        ("q1", "x", "1"), ("q1", "z", "2"), ("q1", "y", "3"),
+        ("q1", "x", "1"),
+        ("q1", "z", "2"),
+        ("q1", "y", "3"),
         # Tie between a and b: trec_eval's order, document id descending.
-        ("q2", "c", "1"), ("q2", "b", "2"), ("q2", "a", "3"),
+        ("q2", "c", "1"),
+        ("q2", "b", "2"),
+        ("q2", "a", "3"),
     ]
 
 
@@ -231,8 +235,9 @@ def test_truncate() -> None:
     assert truncate(RUN, 2) == {"q2": {"c": 0.75, "b": 0.5}, "q1": {"x": 1.0, "z": 0.1 + 0.2}}
 
 
-@pytest.mark.parametrize(("measure", "message"), [("bogus", "unknown measure"),
-                                                 ("ndcg_cut", "name one cutoff")])
+@pytest.mark.parametrize(
+    ("measure", "message"), [("bogus", "unknown measure"), ("ndcg_cut", "name one cutoff")]
+)
 def test_evaluate_rejects_bad_measures(measure: str, message: str) -> None:
     with pytest.raises(SettingsError, match=message):
         evaluate(HAND_RUN, QRELS, (measure,))

@@ -5,8 +5,7 @@ from __future__ import annotations
 import pytest
 from hypothesis import given
 from hypothesis import strategies as st
-
-from indexer.fusion import RRF_K, fusion_depth, reciprocal_rank_fusion, tiered_fusion
+from sounding.indexer.fusion import RRF_K, fusion_depth, reciprocal_rank_fusion, tiered_fusion
 
 
 def test_default_k_is_sixty() -> None:

@@ -8,11 +8,10 @@ from pathlib import Path
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-
-from indexer.chunking import ChunkSettings, chunk_document
-from indexer.documents import Document, Section
-from indexer.embedding import WhitespaceTokenizer
-from indexer.grounding import (
+from sounding.indexer.chunking import ChunkSettings, chunk_document
+from sounding.indexer.documents import Document, Section
+from sounding.indexer.embedding import WhitespaceTokenizer
+from sounding.indexer.grounding import (
     MIN_WORDS,
     SEPARATOR,
     TRUNCATION_MARK,
@@ -22,18 +21,36 @@ from indexer.grounding import (
     select_context,
     token_counter,
 )
-from indexer.search import Hit
+from sounding.indexer.search import Hit
 
 DEMO = Path(__file__).resolve().parents[2] / "demo_corpus"
 
 
-def hit(cid: int, doc: str, ordinal: int, text: str, score: float = 1.0, *,
-        trail: tuple[str, ...] = ("Section",), page: int | None = None,
-        title: str | None = None, source: str | None = None) -> Hit:
-    return Hit(rank=0, score=score, chunk_id=cid, document_id=doc, collection="c",
-               title=title if title is not None else f"Title of {doc}",
-               source=source if source is not None else f"/srv/wiki/{doc}",
-               trail=trail, text=text, page=page, ordinal=ordinal)
+def hit(
+    cid: int,
+    doc: str,
+    ordinal: int,
+    text: str,
+    score: float = 1.0,
+    *,
+    trail: tuple[str, ...] = ("Section",),
+    page: int | None = None,
+    title: str | None = None,
+    source: str | None = None,
+) -> Hit:
+    return Hit(
+        rank=0,
+        score=score,
+        chunk_id=cid,
+        document_id=doc,
+        collection="c",
+        title=title if title is not None else f"Title of {doc}",
+        source=source if source is not None else f"/srv/wiki/{doc}",
+        trail=trail,
+        text=text,
+        page=page,
+        ordinal=ordinal,
+    )
 
 
 def words(n: int, tag: str = "w") -> str:
@@ -99,7 +116,8 @@ def _join_all(texts: list[str]) -> str:
 @given(
     body=st.lists(
         st.text(alphabet="abcdefghijklmnopqrstuvwxyz", min_size=1, max_size=14),
-        min_size=10, max_size=400,
+        min_size=10,
+        max_size=400,
     ),
     max_tokens=st.integers(32, 96),
     overlap=st.integers(0, 16),
@@ -111,10 +129,18 @@ def test_joining_real_chunker_windows_gives_back_the_section(
 ) -> None:
     # Numbered words never repeat, so every overlap found is the true one.
     text = "".join(f"{w}{i}{s}" for i, (w, s) in enumerate(zip(body, seps, strict=False)))
-    doc = Document(id="d.md", title="T", source="/d.md", modified=0, content_hash="h",
-                   kind="markdown", sections=(Section(("S",), text),))
-    for section, texts in _section_pairs(doc, WhitespaceTokenizer(),
-                                         ChunkSettings(max_tokens, overlap)):
+    doc = Document(
+        id="d.md",
+        title="T",
+        source="/d.md",
+        modified=0,
+        content_hash="h",
+        kind="markdown",
+        sections=(Section(("S",), text),),
+    )
+    for section, texts in _section_pairs(
+        doc, WhitespaceTokenizer(), ChunkSettings(max_tokens, overlap)
+    ):
         joined = _join_all(texts)
         if overlap:
             assert joined == section
@@ -123,16 +149,20 @@ def test_joining_real_chunker_windows_gives_back_the_section(
 
 
 def _demo_documents() -> list[Document]:
-    from indexer.loaders import iter_root
+    from sounding.indexer.loaders import iter_root
 
     return [d for d in iter_root(DEMO) if isinstance(d, Document)]
 
 
-@pytest.mark.parametrize("chunk_settings", [ChunkSettings(), ChunkSettings(64, 16),
-                                            ChunkSettings(48, 24)])
+@pytest.mark.parametrize(
+    "chunk_settings", [ChunkSettings(), ChunkSettings(64, 16), ChunkSettings(48, 24)]
+)
 def test_joining_demo_corpus_windows_gives_back_each_section(chunk_settings) -> None:
-    pairs = [p for d in _demo_documents()
-             for p in _section_pairs(d, WhitespaceTokenizer(), chunk_settings)]
+    pairs = [
+        p
+        for d in _demo_documents()
+        for p in _section_pairs(d, WhitespaceTokenizer(), chunk_settings)
+    ]
     assert pairs, "the demo corpus has sections longer than one window"
     for section, texts in pairs:
         assert _join_all(texts) == section
@@ -143,8 +173,11 @@ def test_joining_demo_corpus_windows_gives_back_each_section(chunk_settings) -> 
 def test_joining_real_tokenizer_windows_gives_back_each_section(
     real_embedder, chunk_settings
 ) -> None:
-    pairs = [p for d in _demo_documents()
-             for p in _section_pairs(d, real_embedder.tokenizer, chunk_settings)]
+    pairs = [
+        p
+        for d in _demo_documents()
+        for p in _section_pairs(d, real_embedder.tokenizer, chunk_settings)
+    ]
     assert len(pairs) > 10
     for section, texts in pairs:
         assert _join_all(texts) == section
@@ -154,8 +187,11 @@ def test_joining_real_tokenizer_windows_gives_back_each_section(
 
 
 def test_adjacent_windows_merge_into_one_passage_citing_both() -> None:
-    hits = [hit(11, "a.md", 1, "w1 w2 w3 w4"), hit(20, "b.md", 0, "other text"),
-            hit(10, "a.md", 0, "w0 w1 w2")]
+    hits = [
+        hit(11, "a.md", 1, "w1 w2 w3 w4"),
+        hit(20, "b.md", 0, "other text"),
+        hit(10, "a.md", 0, "w0 w1 w2"),
+    ]
     ctx = select_context(hits, 1000)
     assert [p.chunk_ids for p in ctx.passages] == [(10, 11), (20,)]
     assert ctx.passages[0].text == "w0 w1 w2 w3 w4"
@@ -163,8 +199,11 @@ def test_adjacent_windows_merge_into_one_passage_citing_both() -> None:
 
 
 def test_a_hit_between_two_passages_joins_them() -> None:
-    hits = [hit(1, "a.md", 0, "a b c", 0.9), hit(3, "a.md", 2, "e f g", 0.8),
-            hit(2, "a.md", 1, "c d e", 0.7)]
+    hits = [
+        hit(1, "a.md", 0, "a b c", 0.9),
+        hit(3, "a.md", 2, "e f g", 0.8),
+        hit(2, "a.md", 1, "c d e", 0.7),
+    ]
     ctx = select_context(hits, 1000, max_per_document=2)
     assert len(ctx.passages) == 1
     (p,) = ctx.passages
@@ -172,8 +211,10 @@ def test_a_hit_between_two_passages_joins_them() -> None:
 
 
 def test_neighbouring_sections_stay_separate_passages() -> None:
-    hits = [hit(1, "a.md", 0, "isolate first", trail=("Isolation",)),
-            hit(2, "a.md", 1, "then test", trail=("Testing",))]
+    hits = [
+        hit(1, "a.md", 0, "isolate first", trail=("Isolation",)),
+        hit(2, "a.md", 1, "then test", trail=("Testing",)),
+    ]
     ctx = select_context(hits, 1000)
     assert [p.citation.trail for p in ctx.passages] == [("Isolation",), ("Testing",)]
 
@@ -187,8 +228,7 @@ def test_at_most_n_passages_per_document_but_merges_are_free() -> None:
 
 
 def test_a_passage_that_does_not_fit_is_skipped_for_shorter_ones_below_it() -> None:
-    hits = [hit(1, "a.md", 0, words(20)), hit(2, "b.md", 0, words(200)),
-            hit(3, "c.md", 0, "short")]
+    hits = [hit(1, "a.md", 0, words(20)), hit(2, "b.md", 0, words(200)), hit(3, "c.md", 0, "short")]
     first = select_context(hits[:1], 10_000)
     ctx = select_context(hits, first.used + 120)
     assert [p.chunk_ids for p in ctx.passages] == [(1,), (3,)]
@@ -221,10 +261,27 @@ def test_no_cut_when_fewer_than_min_words_would_fit() -> None:
 
 
 def test_rendered_block_numbers_each_passage_and_follows_it_with_its_citation() -> None:
-    hits = [hit(1, "manual.pdf", 4, "Torque the bolts.", trail=("Assembly", "Bolts"), page=3,
-                title="Pump manual", source="/srv/docs/manual.pdf"),
-            hit(2, "kb/42", 0, "Reset the breaker.", trail=(), title="Breaker",
-                source="https://wiki.example/kb/42?rev=7")]
+    hits = [
+        hit(
+            1,
+            "manual.pdf",
+            4,
+            "Torque the bolts.",
+            trail=("Assembly", "Bolts"),
+            page=3,
+            title="Pump manual",
+            source="/srv/docs/manual.pdf",
+        ),
+        hit(
+            2,
+            "kb/42",
+            0,
+            "Reset the breaker.",
+            trail=(),
+            title="Breaker",
+            source="https://wiki.example/kb/42?rev=7",
+        ),
+    ]
     ctx = select_context(hits, 1000)
     assert ctx.text == (
         "[1] Torque the bolts.\n"
@@ -234,7 +291,8 @@ def test_rendered_block_numbers_each_passage_and_follows_it_with_its_citation() 
         "Source: Breaker (https://wiki.example/kb/42?rev=7; document kb/42)"
     )
     assert ctx.passages[0].citation == Citation(
-        "manual.pdf", "Pump manual", "/srv/docs/manual.pdf", ("Assembly", "Bolts"), 3)
+        "manual.pdf", "Pump manual", "/srv/docs/manual.pdf", ("Assembly", "Bolts"), 3
+    )
 
 
 def test_citation_line_is_one_line_even_when_fields_hold_line_breaks() -> None:
@@ -244,8 +302,9 @@ def test_citation_line_is_one_line_even_when_fields_hold_line_breaks() -> None:
 
 
 def test_duplicate_and_empty_hits_are_ignored() -> None:
-    ctx = select_context([hit(1, "a.md", 0, "same"), hit(1, "a.md", 0, "same"),
-                          hit(2, "b.md", 0, "  \n ")], 1000)
+    ctx = select_context(
+        [hit(1, "a.md", 0, "same"), hit(1, "a.md", 0, "same"), hit(2, "b.md", 0, "  \n ")], 1000
+    )
     assert [p.chunk_ids for p in ctx.passages] == [(1,)]
     assert select_context([], 5) == select_context([], 5)
     assert select_context([], 5).text == ""
@@ -259,23 +318,29 @@ def test_bad_arguments_are_refused(bad) -> None:
 
 # -- properties ------------------------------------------------------------------------------
 
-_WORD = st.text(alphabet="abcdefghijklmnopqrstuvwxyz0123456789.,;:-()'é[]", min_size=1,
-                max_size=12)
+_WORD = st.text(alphabet="abcdefghijklmnopqrstuvwxyz0123456789.,;:-()'é[]", min_size=1, max_size=12)
 
 
 @st.composite
 def ranked_hits(draw) -> list[Hit]:
     """Hits of a few documents in random rank order; (document, ordinal) is one chunk."""
-    keys = draw(st.lists(st.tuples(st.integers(0, 3), st.integers(0, 7)), unique=True,
-                         max_size=24))
+    keys = draw(st.lists(st.tuples(st.integers(0, 3), st.integers(0, 7)), unique=True, max_size=24))
     hits = []
     for cid, (d, o) in enumerate(keys):
         text = " ".join(draw(st.lists(_WORD, min_size=0, max_size=60)))
         pdf = d == 3
-        hits.append(hit(cid, f"doc{d}.pdf" if pdf else f"doc{d}.md", o, text,
-                        draw(st.floats(0, 1)), trail=(f"H{o // 3}",),
-                        page=o // 2 + 1 if pdf else None,
-                        title=draw(st.sampled_from(["", "Guide", "A much longer title here"]))))
+        hits.append(
+            hit(
+                cid,
+                f"doc{d}.pdf" if pdf else f"doc{d}.md",
+                o,
+                text,
+                draw(st.floats(0, 1)),
+                trail=(f"H{o // 3}",),
+                page=o // 2 + 1 if pdf else None,
+                title=draw(st.sampled_from(["", "Guide", "A much longer title here"])),
+            )
+        )
     return hits
 
 
@@ -301,8 +366,12 @@ def check_context(ctx, hits, budget, count, max_per_document) -> None:
     assert (ctx.text == "") == (not ctx.passages)
 
 
-@given(hits=ranked_hits(), budget=st.integers(1, 3000),
-       counter=st.sampled_from([len, pieces, superadditive]), cap=st.integers(1, 3))
+@given(
+    hits=ranked_hits(),
+    budget=st.integers(1, 3000),
+    counter=st.sampled_from([len, pieces, superadditive]),
+    cap=st.integers(1, 3),
+)
 @settings(max_examples=400, deadline=None)
 def test_block_never_exceeds_the_budget_and_every_passage_is_cited(
     hits, budget, counter, cap
@@ -320,8 +389,9 @@ def test_whitespace_tokens_counter_never_exceeds(hits, budget) -> None:
 
 @pytest.mark.slow
 @given(hits=ranked_hits(), budget=st.integers(1, 1500))
-@settings(max_examples=100, deadline=None,
-          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(
+    max_examples=100, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+)
 def test_real_tokenizer_budget_never_exceeded(real_embedder, hits, budget) -> None:
     count = token_counter(real_embedder.tokenizer)
     check_context(select_context(hits, budget, count), hits, budget, count, 2)

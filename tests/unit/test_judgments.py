@@ -7,14 +7,14 @@ from pathlib import Path
 
 import httpx
 import pytest
+from sounding.indexer.build import refresh_index
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.indexer.errors import SettingsError
+from sounding.indexer.evaluation import read_qrels, read_queries
+from sounding.indexer.judgments import JudgmentStore, query_id
+from sounding.service.app import create_app
+from sounding.service.settings import ServiceSettings
 
-from indexer.build import refresh_index
-from indexer.embedding import HashingEmbedder
-from indexer.errors import SettingsError
-from indexer.evaluation import read_qrels, read_queries
-from indexer.judgments import JudgmentStore, query_id
-from service.app import create_app
-from service.settings import ServiceSettings
 from tests.serving import running
 
 
@@ -69,12 +69,15 @@ def served(tmp_path: Path):
 def test_feedback_is_recorded_and_exported(served, tmp_path: Path) -> None:
     url, settings = served
     hit = httpx.post(f"{url}/search", json={"query": "pager standby"}).json()["results"][0]
-    r = httpx.post(f"{url}/feedback", json={"query": "pager standby", "chunk_id": hit["chunk_id"],
-                                            "grade": 3, "user": "ann"})
+    r = httpx.post(
+        f"{url}/feedback",
+        json={"query": "pager standby", "chunk_id": hit["chunk_id"], "grade": 3, "user": "ann"},
+    )
     assert r.status_code == 201
     assert r.json()["document_id"] == hit["document_id"] == "rota.md"
-    r = httpx.post(f"{url}/feedback",
-                   json={"query": "pager standby", "document_id": "canteen.md", "grade": 0})
+    r = httpx.post(
+        f"{url}/feedback", json={"query": "pager standby", "document_id": "canteen.md", "grade": 0}
+    )
     assert r.status_code == 201
     store = JudgmentStore(settings.judgments_file)
     assert store.export(tmp_path / "set") == (1, 2)

@@ -12,11 +12,11 @@ import threading
 from pathlib import Path
 
 import pytest
+import sounding.service.keys as keys
+from sounding.indexer.errors import AccessError
+from sounding.service.keys import SCOPES, KeyStore, check_groups, scope_rank
 
-import service.keys as keys
-from indexer.errors import AccessError
-from service.cli import main
-from service.keys import SCOPES, KeyStore, check_groups, scope_rank
+from sounding.cli import main
 
 
 @pytest.fixture
@@ -34,16 +34,27 @@ def test_secret_is_shown_once_and_only_its_hash_is_stored(store: KeyStore) -> No
     record, secret = store.create("wiki-bot", "read", "hr,finance", act_for=True)
     assert secret.startswith(f"snd_{record.id}_") and len(secret) == 4 + 12 + 1 + 43
     assert (record.name, record.scope, record.groups, record.act_for) == (
-        "wiki-bot", "read", frozenset({"hr", "finance"}), True)
+        "wiki-bot",
+        "read",
+        frozenset({"hr", "finance"}),
+        True,
+    )
     data = on_disk(store.path)
-    random_part = secret[len("snd_") + 12 + 1:]  # may itself hold '_'
+    random_part = secret[len("snd_") + 12 + 1 :]  # may itself hold '_'
     assert secret.encode() not in data and random_part.encode() not in data
     assert record.id.encode() in data  # the public part is what finds the row
     listed = store.list()
     assert listed == [record]
     assert secret not in json.dumps([r.to_json() for r in listed])
-    assert set(listed[0].to_json()) == {"id", "name", "scope", "groups", "act_for",
-                                        "created_at", "revoked_at"}
+    assert set(listed[0].to_json()) == {
+        "id",
+        "name",
+        "scope",
+        "groups",
+        "act_for",
+        "created_at",
+        "revoked_at",
+    }
 
 
 def test_hash_is_scrypt_with_the_stated_parameters_and_a_salt_per_key(store: KeyStore) -> None:
@@ -172,8 +183,10 @@ def test_bad_scopes_are_refused(store: KeyStore, scope: str) -> None:
     assert store.list() == []
 
 
-@pytest.mark.parametrize("groups", ["hr,,finance", "a b", "-hr", "hr;finance", "x" * 65,
-                                    ",".join(f"g{i}" for i in range(65))])
+@pytest.mark.parametrize(
+    "groups",
+    ["hr,,finance", "a b", "-hr", "hr;finance", "x" * 65, ",".join(f"g{i}" for i in range(65))],
+)
 def test_bad_groups_are_refused(store: KeyStore, groups: str) -> None:
     with pytest.raises(AccessError, match="group"):
         store.create("bot", "read", groups)
@@ -181,8 +194,14 @@ def test_bad_groups_are_refused(store: KeyStore, groups: str) -> None:
 
 @pytest.mark.parametrize(
     ("given", "expected"),
-    [(None, frozenset()), ("", frozenset()), ("  ", frozenset()), ("hr", {"hr"}),
-     (" hr , finance ,hr", {"hr", "finance"}), (["ops.oncall", "HR_2"], {"ops.oncall", "HR_2"})],
+    [
+        (None, frozenset()),
+        ("", frozenset()),
+        ("  ", frozenset()),
+        ("hr", {"hr"}),
+        (" hr , finance ,hr", {"hr", "finance"}),
+        (["ops.oncall", "HR_2"], {"ops.oncall", "HR_2"}),
+    ],
 )
 def test_groups_parse(given, expected) -> None:
     assert check_groups(given) == frozenset(expected)
@@ -217,8 +236,24 @@ def test_concurrent_checks_of_one_store_agree(store: KeyStore) -> None:
 
 def test_cli_create_prints_the_secret_once_on_stdout(tmp_path: Path, capsys) -> None:
     index = str(tmp_path / "idx")
-    assert main(["keys", "create", "--name", "chat-bot", "--scope", "read", "--groups",
-                 "hr,finance", "--act-for", "--index", index]) == 0
+    assert (
+        main(
+            [
+                "keys",
+                "create",
+                "--name",
+                "chat-bot",
+                "--scope",
+                "read",
+                "--groups",
+                "hr,finance",
+                "--act-for",
+                "--index",
+                index,
+            ]
+        )
+        == 0
+    )
     out, err = capsys.readouterr()
     secret = out.strip()
     assert out.count("\n") == 1 and secret.startswith("snd_")
@@ -245,11 +280,28 @@ def test_cli_create_prints_the_secret_once_on_stdout(tmp_path: Path, capsys) -> 
 
 def test_cli_keys_path_setting_wins(tmp_path: Path, capsys, monkeypatch) -> None:
     monkeypatch.setenv("SOUNDING_KEYS_PATH", str(tmp_path / "elsewhere.db"))
-    assert main(["keys", "create", "--name", "a", "--scope", "admin",
-                 "--index", str(tmp_path / "idx")]) == 0
+    assert (
+        main(
+            ["keys", "create", "--name", "a", "--scope", "admin", "--index", str(tmp_path / "idx")]
+        )
+        == 0
+    )
     assert (tmp_path / "elsewhere.db").is_file() and not (tmp_path / "idx").exists()
-    assert main(["keys", "create", "--name", "b", "--scope", "admin",
-                 "--keys", str(tmp_path / "third.db")]) == 0
+    assert (
+        main(
+            [
+                "keys",
+                "create",
+                "--name",
+                "b",
+                "--scope",
+                "admin",
+                "--keys",
+                str(tmp_path / "third.db"),
+            ]
+        )
+        == 0
+    )
     assert (tmp_path / "third.db").is_file()
 
 
@@ -283,23 +335,35 @@ def run_cli(*args: str, env: dict[str, str] | None = None) -> subprocess.Complet
 
     full_env = {k: v for k, v in os.environ.items() if not k.startswith("SOUNDING_")}
     full_env.update(env or {})
-    return subprocess.run([sys.executable, "-m", "service.cli", *args], capture_output=True,
-                          text=True, env=full_env, timeout=120)
+    return subprocess.run(
+        [sys.executable, "-m", "sounding.cli", *args],
+        capture_output=True,
+        text=True,
+        env=full_env,
+        timeout=120,
+    )
 
 
-@pytest.mark.parametrize("argv", [["keys"], ["keys", "create"], ["keys", "list"],
-                                  ["keys", "revoke"]])
+@pytest.mark.parametrize(
+    "argv", [["keys"], ["keys", "create"], ["keys", "list"], ["keys", "revoke"]]
+)
 def test_every_keys_help_has_an_example(argv: list[str]) -> None:
     proc = run_cli(*argv, "--help")
     assert proc.returncode == 0
-    assert ("example:\n" in proc.stdout or "examples:\n" in proc.stdout)
+    assert "example:\n" in proc.stdout or "examples:\n" in proc.stdout
     assert f"sounding {' '.join(argv)}" in proc.stdout
 
 
 @pytest.mark.parametrize("host", ["0.0.0.0", "192.0.2.10", "wiki.example"])
 def test_serve_refuses_keys_off_beyond_loopback(tmp_path: Path, host: str) -> None:
-    proc = run_cli("serve", "--host", host, "--index", str(tmp_path / "idx"),
-                   env={"SOUNDING_REQUIRE_KEYS": "false"})
+    proc = run_cli(
+        "serve",
+        "--host",
+        host,
+        "--index",
+        str(tmp_path / "idx"),
+        env={"SOUNDING_REQUIRE_KEYS": "false"},
+    )
     assert proc.returncode == 2
     lines = proc.stderr.strip().splitlines()
     assert len(lines) == 1 and "require_keys is false" in lines[0] and host in lines[0]

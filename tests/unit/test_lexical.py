@@ -5,13 +5,12 @@ from __future__ import annotations
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-
-from indexer.build import refresh_index
-from indexer.embedding import HashingEmbedder
-from indexer.lexical import fts5_query, query_terms
-from indexer.search import Searcher
-from indexer.settings import IndexSettings
-from indexer.store import IndexReader
+from sounding.indexer.build import refresh_index
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.indexer.lexical import fts5_query, query_terms
+from sounding.indexer.search import Searcher
+from sounding.indexer.settings import IndexSettings
+from sounding.indexer.store import IndexReader
 
 FIXTURE_OK = [HealthCheck.function_scoped_fixture]  # the fixture is module-scoped, read-only
 
@@ -19,7 +18,7 @@ PAGES = {
     "err.md": "# Error codes\n\nERR-4471 means the ingest queue is full; drain it first.\n",
     "valves.md": "# Valves\n\nRestoring a valve: close the gate, then replace the seal.\n",
     "near.md": "# Near misses\n\nReport every near miss NEAR the reservoir within a day.\n",
-    "food.txt": "Canteen\n\nSoup (vegetable) is served at noon: \"free\" on Fridays.\n",
+    "food.txt": 'Canteen\n\nSoup (vegetable) is served at noon: "free" on Fridays.\n',
 }
 
 
@@ -89,9 +88,32 @@ def test_any_text_is_a_safe_query_in_every_mode(searcher: Searcher, text: str) -
 
 @given(
     st.lists(
-        st.sampled_from(['"', "(", ")", "*", "-", ":", "NEAR", "AND", "OR", "NOT", "^", "+",
-                         "{", "}", "NEAR(", "valve", "gate", "'", ",", "/"]),
-        min_size=1, max_size=12,
+        st.sampled_from(
+            [
+                '"',
+                "(",
+                ")",
+                "*",
+                "-",
+                ":",
+                "NEAR",
+                "AND",
+                "OR",
+                "NOT",
+                "^",
+                "+",
+                "{",
+                "}",
+                "NEAR(",
+                "valve",
+                "gate",
+                "'",
+                ",",
+                "/",
+            ]
+        ),
+        min_size=1,
+        max_size=12,
     ).map(" ".join)
 )
 @settings(max_examples=300, deadline=None, suppress_health_check=FIXTURE_OK)

@@ -13,13 +13,12 @@ from pathlib import Path
 
 import pypdf
 import pytest
+import sounding.indexer.loaders as loaders
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-
-import indexer.loaders as loaders
-from indexer.documents import Document, Section, Skipped
-from indexer.errors import LoadError, SettingsError
-from indexer.loaders import SUPPORTED_SUFFIXES, iter_root, load_file
+from sounding.indexer.documents import Document, Section, Skipped
+from sounding.indexer.errors import LoadError, SettingsError
+from sounding.indexer.loaders import SUPPORTED_SUFFIXES, iter_root, load_file
 
 # -- helpers -------------------------------------------------------------------
 
@@ -141,9 +140,10 @@ def test_make_pdf_helper_builds_a_readable_pdf() -> None:
 
 
 def test_supported_suffixes_are_exactly_the_documented_ones() -> None:
-    assert frozenset(
-        {".md", ".markdown", ".html", ".htm", ".pdf", ".txt", ".jsonl", ".jsonl.gz"}
-    ) == SUPPORTED_SUFFIXES
+    assert (
+        frozenset({".md", ".markdown", ".html", ".htm", ".pdf", ".txt", ".jsonl", ".jsonl.gz"})
+        == SUPPORTED_SUFFIXES
+    )
 
 
 @pytest.mark.parametrize(
@@ -485,8 +485,7 @@ PAGE = """<!DOCTYPE html>
 
 def test_html_metadata_title_and_chrome_removed(tmp_path: Path) -> None:
     body = (
-        "<h1>Restore</h1><p>Stop the  service\n first.</p>"
-        "<h2>Steps</h2><p>Run &lt;restore&gt;.</p>"
+        "<h1>Restore</h1><p>Stop the  service\n first.</p><h2>Steps</h2><p>Run &lt;restore&gt;.</p>"
     )
     doc = load_one(tmp_path, "r.html", PAGE.format(body=body))
     assert doc.kind == "html"
@@ -585,8 +584,11 @@ def test_html_tables_lists_and_pre(tmp_path: Path) -> None:
         ("<title>T</title><h1>Other</h1><p>x</p>", "T", [(("Other",), "x")]),
         ("<h1>From h1</h1><h2>Sub</h2><p>x</p>", "From h1", [(("Sub",), "x")]),
         ("<title>  </title><h1>From h1</h1><p>x</p>", "From h1", [((), "x")]),
-        ("<h2>A</h2><p>a</p><h3>B</h3><p>b</p><h2>C</h2><p>c</p>", "Stem name",
-         [(("A",), "a"), (("A", "B"), "b"), (("C",), "c")]),
+        (
+            "<h2>A</h2><p>a</p><h3>B</h3><p>b</p><h2>C</h2><p>c</p>",
+            "Stem name",
+            [(("A",), "a"), (("A", "B"), "b"), (("C",), "c")],
+        ),
         ("<h2>Open<h3>Inner</h3><p>x</p>", "Stem name", [(("Open", "Inner"), "x")]),
         ("<h2>Mis</h3><p>x</p>", "Stem name", [(("Mis",), "x")]),
     ],
@@ -873,9 +875,7 @@ def test_a_hidden_root_given_explicitly_is_walked(tmp_path: Path) -> None:
     assert list(walk(tmp_path / ".wiki")[0]) == ["page.md"]
 
 
-@pytest.mark.parametrize(
-    ("size", "loaded"), [(99, True), (100, True), (101, False)]
-)
+@pytest.mark.parametrize(("size", "loaded"), [(99, True), (100, True), (101, False)])
 def test_size_limit(tmp_path: Path, size: int, loaded: bool) -> None:
     write(tmp_path, "big.txt", "a" * size)
     docs, skipped = walk(tmp_path, max_file_bytes=100)
@@ -985,7 +985,6 @@ def test_symlinked_files_inside_are_followed_others_skipped(tmp_path: Path) -> N
     }
 
 
-
 @pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="needs FIFOs")
 def test_special_files_are_skipped_without_blocking(tmp_path: Path) -> None:
     os.mkfifo(tmp_path / "pipe.txt")
@@ -1009,9 +1008,7 @@ def test_unreadable_file_is_skipped(tmp_path: Path, monkeypatch: pytest.MonkeyPa
         load_file(tmp_path / "secret.md", "secret.md")
 
 
-@pytest.mark.skipif(
-    sys.platform == "win32" or os.geteuid() == 0, reason="root can read anything"
-)
+@pytest.mark.skipif(sys.platform == "win32" or os.geteuid() == 0, reason="root can read anything")
 def test_unreadable_file_and_folder_on_disk(tmp_path: Path) -> None:
     locked_file = write(tmp_path, "locked.md", "x")
     locked_dir = tmp_path / "private"

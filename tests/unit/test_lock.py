@@ -9,17 +9,16 @@ import sys
 from pathlib import Path
 
 import pytest
-
-from indexer.build import refresh_index
-from indexer.embedding import HashingEmbedder
-from indexer.errors import IndexLockedError
-from indexer.lock import LOCK_FILE, IndexLock
-from indexer.settings import IndexSettings
-from indexer.store import IndexReader
+from sounding.indexer.build import refresh_index
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.indexer.errors import IndexLockedError
+from sounding.indexer.lock import LOCK_FILE, IndexLock
+from sounding.indexer.settings import IndexSettings
+from sounding.indexer.store import IndexReader
 
 HOLD = """
 import sys, time
-from indexer.lock import IndexLock
+from sounding.indexer.lock import IndexLock
 with IndexLock(sys.argv[1]):
     print("held", flush=True)
     time.sleep(60)
@@ -37,8 +36,9 @@ def wiki(tmp_path: Path) -> Path:
 
 def test_second_writer_fails_at_once_naming_the_holder(tmp_path: Path, wiki: Path) -> None:
     idx = tmp_path / "idx"
-    holder = subprocess.Popen([sys.executable, "-c", HOLD, str(idx)], stdout=subprocess.PIPE,
-                              text=True)
+    holder = subprocess.Popen(
+        [sys.executable, "-c", HOLD, str(idx)], stdout=subprocess.PIPE, text=True
+    )
     try:
         assert holder.stdout.readline().strip() == "held"
         with pytest.raises(IndexLockedError, match=f"pid {holder.pid}") as err:
@@ -52,8 +52,9 @@ def test_second_writer_fails_at_once_naming_the_holder(tmp_path: Path, wiki: Pat
 
 def test_lock_of_a_killed_process_is_taken_over(tmp_path: Path, wiki: Path) -> None:
     idx = tmp_path / "idx"
-    holder = subprocess.Popen([sys.executable, "-c", HOLD, str(idx)], stdout=subprocess.PIPE,
-                              text=True)
+    holder = subprocess.Popen(
+        [sys.executable, "-c", HOLD, str(idx)], stdout=subprocess.PIPE, text=True
+    )
     assert holder.stdout.readline().strip() == "held"
     holder.kill()  # SIGKILL: no clean-up code runs
     holder.wait()
@@ -74,14 +75,18 @@ def test_lock_is_released_after_a_run_and_on_error(tmp_path: Path, wiki: Path) -
 
 def test_cli_exits_75_with_one_line_when_locked(tmp_path: Path, wiki: Path) -> None:
     idx = tmp_path / "idx"
-    holder = subprocess.Popen([sys.executable, "-c", HOLD, str(idx)], stdout=subprocess.PIPE,
-                              text=True)
+    holder = subprocess.Popen(
+        [sys.executable, "-c", HOLD, str(idx)], stdout=subprocess.PIPE, text=True
+    )
     try:
         assert holder.stdout.readline().strip() == "held"
         env = {k: v for k, v in os.environ.items() if not k.startswith("SOUNDING_")}
         proc = subprocess.run(
-            [sys.executable, "-m", "service.cli", "index", str(wiki), "--index", str(idx)],
-            capture_output=True, text=True, env=env, timeout=120,
+            [sys.executable, "-m", "sounding.cli", "index", str(wiki), "--index", str(idx)],
+            capture_output=True,
+            text=True,
+            env=env,
+            timeout=120,
         )
         assert proc.returncode == 75
         lines = proc.stderr.strip().splitlines()

@@ -17,15 +17,15 @@ from pathlib import Path
 
 import httpx
 import pytest
-
-from indexer.embedding import HashingEmbedder
-from service.app import INTERNAL_ERROR, create_app
-from service.logs import (
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.service.app import INTERNAL_ERROR, create_app
+from sounding.service.logs import (
     MAX_REQUEST_ID_CHARS,
     JsonFormatter,
     accept_request_id,
     current_request_id,
 )
+
 from tests.serving import free_port, running
 from tests.unit.test_metrics import REQUESTS, build, scrape, value
 
@@ -95,8 +95,18 @@ def test_a_well_formed_request_id_is_kept(given: str) -> None:
 
 @pytest.mark.parametrize(
     "given",
-    [None, "", "x" * (MAX_REQUEST_ID_CHARS + 1), "two words", "line\nbreak", 'quo"te',
-     "<script>", "naïve", "a,b", "{\"level\": \"error\"}"],
+    [
+        None,
+        "",
+        "x" * (MAX_REQUEST_ID_CHARS + 1),
+        "two words",
+        "line\nbreak",
+        'quo"te',
+        "<script>",
+        "naïve",
+        "a,b",
+        '{"level": "error"}',
+    ],
 )
 def test_a_bad_request_id_is_replaced(given: str | None) -> None:
     assert GENERATED.fullmatch(accept_request_id(given))
@@ -130,11 +140,17 @@ def test_a_bad_incoming_id_is_replaced_in_the_answer_and_the_log(base: str, bad:
 
 
 def test_refusals_from_request_limits_carry_the_id(base: str) -> None:
-    r = httpx.post(f"{base}/search", content=b"x" * 5000, headers={
-        "content-type": "application/json", "X-Request-ID": "too-big-1"})
+    r = httpx.post(
+        f"{base}/search",
+        content=b"x" * 5000,
+        headers={"content-type": "application/json", "X-Request-ID": "too-big-1"},
+    )
     assert r.status_code == 413 and r.headers["x-request-id"] == "too-big-1"
-    r = httpx.post(f"{base}/search", content=b'{"query": NaN}', headers={
-        "content-type": "application/json", "X-Request-ID": "nan-1"})
+    r = httpx.post(
+        f"{base}/search",
+        content=b'{"query": NaN}',
+        headers={"content-type": "application/json", "X-Request-ID": "nan-1"},
+    )
     assert r.status_code == 422 and r.headers["x-request-id"] == "nan-1"
 
 
@@ -145,8 +161,9 @@ def test_access_lines_hold_no_query_text_nor_document_path(base: str) -> None:
         entries = logs.records(access_lines=2)
         lines = logs.stream.getvalue()
     assert SECRET_QUERY not in lines and "jane" not in lines and "review" not in lines
-    routes = [(e["route"], e["mode"], e["status"]) for e in entries
-              if e["logger"] == "sounding.access"]
+    routes = [
+        (e["route"], e["mode"], e["status"]) for e in entries if e["logger"] == "sounding.access"
+    ]
     assert routes == [("/search", "dense", 200), ("/documents/{document_id}", "none", 404)]
 
 
@@ -171,8 +188,14 @@ def test_json_formatter_writes_one_parseable_line() -> None:
         raise ValueError("bad\nvalue")
     except ValueError:
         record = logging.getLogger("sounding.test").makeRecord(
-            "sounding.test", logging.WARNING, __file__, 1, "odd %s", ("ünïcode\n\"quoted\"",),
-            sys.exc_info(), extra={"generation": 4},
+            "sounding.test",
+            logging.WARNING,
+            __file__,
+            1,
+            "odd %s",
+            ('ünïcode\n"quoted"',),
+            sys.exc_info(),
+            extra={"generation": 4},
         )
     line = JsonFormatter().format(record)
     assert "\n" not in line
@@ -192,7 +215,7 @@ def test_log_config_is_valid_for_dictconfig(fmt: str) -> None:
     """Applied in a child process: dictConfig changes the whole process's logging."""
     script = (
         "import logging, logging.config, sys\n"
-        "from service.logs import log_config, request_id_var\n"
+        "from sounding.service.logs import log_config, request_id_var\n"
         f"logging.config.dictConfig(log_config('info', {fmt!r}))\n"
         "request_id_var.set('rid-9')\n"
         "logging.getLogger('sounding.access').info('GET /health 200', extra={'status': 200})\n"
@@ -200,8 +223,13 @@ def test_log_config_is_valid_for_dictconfig(fmt: str) -> None:
         "logging.getLogger('uvicorn.access').info('raw path here')\n"
         "logging.getLogger('sentence_transformers').info('library chatter')\n"
     )
-    proc = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True,
-                          timeout=60, cwd=Path(__file__).parents[2])
+    proc = subprocess.run(
+        [sys.executable, "-c", script],
+        capture_output=True,
+        text=True,
+        timeout=60,
+        cwd=Path(__file__).parents[2],
+    )
     assert proc.returncode == 0, proc.stderr
     lines = proc.stderr.splitlines()
     assert len(lines) == 2, proc.stderr  # uvicorn's access log and library info are off
@@ -220,18 +248,29 @@ def test_sounding_serve_logs_json_lines_with_request_ids(tmp_path: Path) -> None
     # The bundled encoder is not what this test is about: serve with the seeded fake.
     script = (
         "import sys\n"
-        "from indexer.embedding import HashingEmbedder\n"
-        "from indexer.settings import IndexSettings\n"
+        "from sounding.indexer.embedding import HashingEmbedder\n"
+        "from sounding.indexer.settings import IndexSettings\n"
         "IndexSettings.embedder = lambda self: HashingEmbedder(16)\n"
-        "from service.cli import main\n"
+        "from sounding.cli import main\n"
         "sys.exit(main(sys.argv[1:]))\n"
     )
     env = {k: v for k, v in os.environ.items() if not k.startswith("SOUNDING_")}
     env["SOUNDING_REQUIRE_KEYS"] = "false"
     proc = subprocess.Popen(
-        [sys.executable, "-c", script, "serve", "--index", str(settings.index_dir),
-         "--port", str(port)],
-        stderr=subprocess.PIPE, stdout=subprocess.DEVNULL, text=True, env=env,
+        [
+            sys.executable,
+            "-c",
+            script,
+            "serve",
+            "--index",
+            str(settings.index_dir),
+            "--port",
+            str(port),
+        ],
+        stderr=subprocess.PIPE,
+        stdout=subprocess.DEVNULL,
+        text=True,
+        env=env,
         cwd=Path(__file__).parents[2],
     )
     base = f"http://127.0.0.1:{port}"
@@ -245,8 +284,9 @@ def test_sounding_serve_logs_json_lines_with_request_ids(tmp_path: Path) -> None
                 if proc.poll() is not None or time.monotonic() > deadline:
                     raise AssertionError("sounding serve did not start") from None
                 time.sleep(0.1)
-        r = httpx.post(f"{base}/search", json={"query": SECRET_QUERY},
-                       headers={"X-Request-ID": "serve-1"})
+        r = httpx.post(
+            f"{base}/search", json={"query": SECRET_QUERY}, headers={"X-Request-ID": "serve-1"}
+        )
         assert r.status_code == 200 and r.headers["x-request-id"] == "serve-1"
     finally:
         proc.send_signal(signal.SIGINT)
@@ -255,6 +295,7 @@ def test_sounding_serve_logs_json_lines_with_request_ids(tmp_path: Path) -> None
     assert SECRET_QUERY not in stderr
     access = [e for e in entries if e["logger"] == "sounding.access"]
     assert {"route": "/search", "request_id": "serve-1", "status": 200}.items() <= next(
-        e for e in access if e["route"] == "/search").items()
+        e for e in access if e["route"] == "/search"
+    ).items()
     assert any(e["logger"].startswith("uvicorn") for e in entries)
     assert not any(e["logger"] == "uvicorn.access" for e in entries)

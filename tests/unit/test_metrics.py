@@ -8,15 +8,15 @@ from pathlib import Path
 import httpx
 import pytest
 from prometheus_client.parser import text_string_to_metric_families
+from sounding.indexer.build import refresh_index
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.indexer.errors import IndexMismatchError
+from sounding.indexer.store import read_last_run
+from sounding.service.app import create_app
+from sounding.service.limits import DEFAULT_MAX_JSON_DEPTH
+from sounding.service.metrics import BUCKETS, ServiceMetrics
+from sounding.service.settings import ServiceSettings
 
-from indexer.build import refresh_index
-from indexer.embedding import HashingEmbedder
-from indexer.errors import IndexMismatchError
-from indexer.store import read_last_run
-from service.app import create_app
-from service.limits import DEFAULT_MAX_JSON_DEPTH
-from service.metrics import BUCKETS, ServiceMetrics
-from service.settings import ServiceSettings
 from tests.serving import running
 
 PAGES = {
@@ -78,10 +78,14 @@ def test_search_counts_and_latency_move_per_mode(base: str) -> None:
         assert r.status_code == 200
     after, _ = scrape(base)
     ok = {"route": "/search", "method": "POST", "status": "200"}
-    assert value(after, REQUESTS, mode="lexical", **ok) - value(
-        before, REQUESTS, mode="lexical", **ok) == 2
-    assert value(after, REQUESTS, mode="hybrid", **ok) - value(
-        before, REQUESTS, mode="hybrid", **ok) == 1
+    assert (
+        value(after, REQUESTS, mode="lexical", **ok) - value(before, REQUESTS, mode="lexical", **ok)
+        == 2
+    )
+    assert (
+        value(after, REQUESTS, mode="hybrid", **ok) - value(before, REQUESTS, mode="hybrid", **ok)
+        == 1
+    )
     assert value(after, REQUESTS, mode="dense", **ok) == value(before, REQUESTS, mode="dense", **ok)
     timed = {"route": "/search", "method": "POST", "mode": "lexical"}
     count = value(after, f"{LATENCY}_count", **timed)
@@ -117,26 +121,26 @@ def test_labels_are_route_templates_never_ids_or_paths(base: str) -> None:
     doc = {"route": "/documents/{document_id}", "method": "GET", "mode": "none"}
     assert value(samples, REQUESTS, status="404", **doc) >= 1
     assert value(samples, REQUESTS, status="200", **doc) >= 1
-    assert value(samples, REQUESTS, route="unmatched", method="GET", mode="none",
-                 status="404") >= 1
+    assert value(samples, REQUESTS, route="unmatched", method="GET", mode="none", status="404") >= 1
 
 
 def test_an_unusual_method_does_not_make_a_new_label(base: str) -> None:
     assert httpx.request("BREW", f"{base}/health").status_code == 405
     samples, text = scrape(base)
     assert "BREW" not in text
-    assert value(samples, REQUESTS, route="/health", method="other", mode="none",
-                 status="405") >= 1
+    assert value(samples, REQUESTS, route="/health", method="other", mode="none", status="405") >= 1
 
 
 def test_refusals_before_any_route_are_counted(base: str) -> None:
     """RequestLimits answers 413 and 422 itself; they are still counted, under the route."""
     before, _ = scrape(base)
-    big = httpx.post(f"{base}/search", content=b"x" * 5000,
-                     headers={"content-type": "application/json"})
+    big = httpx.post(
+        f"{base}/search", content=b"x" * 5000, headers={"content-type": "application/json"}
+    )
     deep = "[" * (DEFAULT_MAX_JSON_DEPTH + 1) + "]" * (DEFAULT_MAX_JSON_DEPTH + 1)
-    nested = httpx.post(f"{base}/search", content=deep,
-                        headers={"content-type": "application/json"})
+    nested = httpx.post(
+        f"{base}/search", content=deep, headers={"content-type": "application/json"}
+    )
     assert (big.status_code, nested.status_code) == (413, 422)
     after, _ = scrape(base)
     for status in ("413", "422"):
@@ -152,8 +156,14 @@ def test_index_gauges_match_health(base: str) -> None:
     assert value(samples, "sounding_index_chunks") == health["chunks"]
     assert value(samples, "sounding_index_generation") == health["generation"]
     assert value(samples, "sounding_index_updated_timestamp_seconds") > 0
-    assert value(samples, "sounding_build_info", version=httpx.get(
-        f"{base}/openapi.json").json()["info"]["version"]) == 1
+    assert (
+        value(
+            samples,
+            "sounding_build_info",
+            version=httpx.get(f"{base}/openapi.json").json()["info"]["version"],
+        )
+        == 1
+    )
 
 
 def test_last_run_gauges_follow_an_ok_then_a_failed_run(tmp_path: Path) -> None:
@@ -165,7 +175,8 @@ def test_last_run_gauges_follow_an_ok_then_a_failed_run(tmp_path: Path) -> None:
         samples, _ = scrape(url)
         assert value(samples, "sounding_last_index_run_success") == 1
         assert value(samples, "sounding_last_index_run_timestamp_seconds") == pytest.approx(
-            first["finished_at"])
+            first["finished_at"]
+        )
         assert value(samples, "sounding_last_index_run_duration_seconds") == first["seconds"]
 
         # Another encoder than the one that built the index: the run fails and says so.
@@ -176,7 +187,8 @@ def test_last_run_gauges_follow_an_ok_then_a_failed_run(tmp_path: Path) -> None:
         samples, text = scrape(url)
         assert value(samples, "sounding_last_index_run_success") == 0
         assert value(samples, "sounding_last_index_run_timestamp_seconds") == pytest.approx(
-            failed["finished_at"])
+            failed["finished_at"]
+        )
         assert ("sounding_last_index_run_duration_seconds", frozenset()) not in samples
         assert str(settings.index_dir) not in text  # the run's detail names paths: not exposed
         assert value(samples, "sounding_index_loaded") == 1  # the last generation is served
@@ -187,8 +199,10 @@ def test_without_an_index_the_gauges_say_so(tmp_path: Path) -> None:
     with running(create_app(settings, embedder=HashingEmbedder(16))) as url:
         samples, _ = scrape(url)
     assert value(samples, "sounding_index_loaded") == 0
-    assert not any(name.startswith(("sounding_index_documents", "sounding_last_index_run"))
-                   for name, _ in samples)
+    assert not any(
+        name.startswith(("sounding_index_documents", "sounding_last_index_run"))
+        for name, _ in samples
+    )
 
 
 def test_each_app_counts_on_its_own(tmp_path: Path) -> None:
@@ -214,8 +228,7 @@ def test_label_values_come_from_fixed_sets(
     metrics = ServiceMetrics(tmp_path)
     metrics.observe("/search", method, mode, status, 0.02)
     families = {f.name: f for f in text_string_to_metric_families(metrics.render(None).decode())}
-    (sample,) = [s for s in families["sounding_http_requests"].samples
-                 if s.name.endswith("_total")]
+    (sample,) = [s for s in families["sounding_http_requests"].samples if s.name.endswith("_total")]
     assert (sample.labels["method"], sample.labels["mode"], sample.labels["status"]) == labels
 
 

@@ -13,10 +13,9 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from pydantic import ValidationError
-
-from indexer.chunking import ChunkSettings, chunk_document
-from indexer.documents import Document
-from indexer.embedding import (
+from sounding.indexer.chunking import ChunkSettings, chunk_document
+from sounding.indexer.documents import Document
+from sounding.indexer.embedding import (
     BF16_FLAGS,
     SentenceTransformerEmbedder,
     bundled_model_path,
@@ -25,9 +24,10 @@ from indexer.embedding import (
     encode_longest_first,
     usable_cores,
 )
-from indexer.errors import SettingsError
-from indexer.loaders import iter_root
-from indexer.settings import IndexSettings
+from sounding.indexer.errors import SettingsError
+from sounding.indexer.loaders import iter_root
+from sounding.indexer.settings import IndexSettings
+
 from tests.conftest import DEMO_CORPUS
 
 # Shortened /proc/cpuinfo texts: the layout of Linux's x86 and arm64 cpuinfo files.
@@ -62,13 +62,13 @@ def test_choose_precision(requested: str, cpuinfo: str, expected: str) -> None:
 
 
 def test_auto_falls_back_to_fp32_with_a_debug_line(caplog: pytest.LogCaptureFixture) -> None:
-    with caplog.at_level(logging.DEBUG, logger="indexer.embedding"):
+    with caplog.at_level(logging.DEBUG, logger="sounding.indexer.embedding"):
         assert choose_precision("auto", cpu_flags(X86_OLD)) == "fp32"
     assert any(r.levelno == logging.DEBUG and "fp32" in r.message for r in caplog.records)
 
 
 def test_explicit_bf16_without_native_support_warns(caplog: pytest.LogCaptureFixture) -> None:
-    with caplog.at_level(logging.WARNING, logger="indexer.embedding"):
+    with caplog.at_level(logging.WARNING, logger="sounding.indexer.embedding"):
         choose_precision("bf16", cpu_flags(X86_OLD))
     assert any("emulates" in r.message for r in caplog.records)
 
@@ -97,8 +97,11 @@ def test_settings_pass_precision_and_threads(monkeypatch: pytest.MonkeyPatch) ->
     monkeypatch.setenv("SOUNDING_PRECISION", "fp32")
     monkeypatch.setenv("SOUNDING_THREADS", "1")
     embedder = IndexSettings().embedder()
-    assert (embedder.requested_precision, embedder.precision, embedder.threads) == ("fp32",
-                                                                                     "fp32", 1)
+    assert (embedder.requested_precision, embedder.precision, embedder.threads) == (
+        "fp32",
+        "fp32",
+        1,
+    )
     monkeypatch.delenv("SOUNDING_THREADS")
     assert IndexSettings().threads is None  # unset: every usable core
 
@@ -211,8 +214,10 @@ def test_bf16_embeddings_match_fp32_on_every_demo_chunk() -> None:
     keeps 8 mantissa bits against fp32's 23 (IEEE 754 / Google Brain bfloat16).
     """
     if not cpu_flags() & BF16_FLAGS:
-        pytest.skip(f"this CPU has no native bf16 ({', '.join(sorted(BF16_FLAGS))} absent "
-                    "from /proc/cpuinfo): auto runs fp32 here, nothing to compare")
+        pytest.skip(
+            f"this CPU has no native bf16 ({', '.join(sorted(BF16_FLAGS))} absent "
+            "from /proc/cpuinfo): auto runs fp32 here, nothing to compare"
+        )
     fp32 = SentenceTransformerEmbedder(bundled_model_path(), batch_size=32, precision="fp32")
     bf16 = SentenceTransformerEmbedder(bundled_model_path(), batch_size=32, precision="bf16")
     assert bf16.precision == "bf16" and fp32.fingerprint == bf16.fingerprint

@@ -11,15 +11,15 @@ from pathlib import Path
 import httpx
 import numpy as np
 import pytest
+from sounding.indexer.build import refresh_index
+from sounding.indexer.embedding import HashingEmbedder, bundled_model_path
+from sounding.indexer.errors import ModelError, QueryError
+from sounding.indexer.rerank import CrossEncoderReranker, rerank
+from sounding.indexer.search import Searcher
+from sounding.indexer.store import IndexReader
+from sounding.service.app import create_app
+from sounding.service.settings import ServiceSettings
 
-from indexer.build import refresh_index
-from indexer.embedding import HashingEmbedder, bundled_model_path
-from indexer.errors import ModelError, QueryError
-from indexer.rerank import CrossEncoderReranker, rerank
-from indexer.search import Searcher
-from indexer.store import IndexReader
-from service.app import create_app
-from service.settings import ServiceSettings
 from tests.serving import running
 
 
@@ -32,8 +32,13 @@ def tiny_cross_encoder(tmp_path_factory: pytest.TempPathFactory) -> Path:
     folder = tmp_path_factory.mktemp("tiny-cross-encoder")
     tok = AutoTokenizer.from_pretrained(str(bundled_model_path()))
     config = BertConfig(
-        vocab_size=tok.vocab_size, hidden_size=32, num_hidden_layers=2, num_attention_heads=2,
-        intermediate_size=64, num_labels=1, max_position_embeddings=512,
+        vocab_size=tok.vocab_size,
+        hidden_size=32,
+        num_hidden_layers=2,
+        num_attention_heads=2,
+        intermediate_size=64,
+        num_labels=1,
+        max_position_embeddings=512,
     )
     BertForSequenceClassification(config).save_pretrained(folder)
     tok.save_pretrained(folder)
@@ -46,7 +51,9 @@ def index(tmp_path_factory: pytest.TempPathFactory) -> ServiceSettings:
     for i in range(12):
         (root / f"p{i}.md").write_text(f"# Pump {i}\n\nPump number {i} sits in hall {i % 3}.\n")
     settings = ServiceSettings(
-        require_keys=False, index_dir=root.parent / "rerank-idx", rerank_depth=8,
+        require_keys=False,
+        index_dir=root.parent / "rerank-idx",
+        rerank_depth=8,
     )
     refresh_index([root], settings, HashingEmbedder(16))
     return settings

@@ -5,8 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy import stats
-
-from indexer.significance import EXACT_MAX, paired_t_test, randomisation_test
+from sounding.indexer.significance import EXACT_MAX, paired_t_test, randomisation_test
 
 
 def pairs(seed: int, n: int, shift: float) -> tuple[np.ndarray, np.ndarray]:
@@ -33,8 +32,12 @@ def _scipy_permutation(a: np.ndarray, b: np.ndarray, n_resamples: float) -> floa
         return np.mean(y - x, axis=axis)
 
     return stats.permutation_test(
-        (a, b), mean_diff, permutation_type="samples", vectorized=True,
-        n_resamples=n_resamples, alternative="two-sided",
+        (a, b),
+        mean_diff,
+        permutation_type="samples",
+        vectorized=True,
+        n_resamples=n_resamples,
+        alternative="two-sided",
     ).pvalue
 
 

@@ -8,23 +8,40 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
-from indexer.chunking import Chunk, ChunkSettings
-from indexer.documents import Document, Section
-from indexer.embedding import HashingEmbedder, describe
-from indexer.errors import IndexCorruptError, IndexMismatchError, IndexMissingError
-from indexer.store import DATABASE, MANIFEST, SCHEMA_VERSION, IndexReader, IndexWriter, Manifest
+from sounding.indexer.chunking import Chunk, ChunkSettings
+from sounding.indexer.documents import Document, Section
+from sounding.indexer.embedding import HashingEmbedder, describe
+from sounding.indexer.errors import IndexCorruptError, IndexMismatchError, IndexMissingError
+from sounding.indexer.store import (
+    DATABASE,
+    MANIFEST,
+    SCHEMA_VERSION,
+    IndexReader,
+    IndexWriter,
+    Manifest,
+)
 
 
 def make_doc(i: int, n_chunks: int) -> tuple[Document, list[Chunk]]:
     doc = Document(
-        id=f"notes/doc-{i}.md", title=f"Doc {i}", source=f"/wiki/notes/doc-{i}.md",
-        modified=1_700_000_000.0 + i, content_hash=f"hash-{i}", kind="markdown",
-        sections=(Section(("H",), "x"),), metadata={"tags": ["t"], "n": i},
+        id=f"notes/doc-{i}.md",
+        title=f"Doc {i}",
+        source=f"/wiki/notes/doc-{i}.md",
+        modified=1_700_000_000.0 + i,
+        content_hash=f"hash-{i}",
+        kind="markdown",
+        sections=(Section(("H",), "x"),),
+        metadata={"tags": ["t"], "n": i},
     )
     chunks = [
-        Chunk(ordinal=j, trail=("H", f"S{j}"), text=f"text {i}.{j}", embed_text=f"e {i}.{j}",
-              tokens=5, page=j + 1 if i % 2 else None)
+        Chunk(
+            ordinal=j,
+            trail=("H", f"S{j}"),
+            text=f"text {i}.{j}",
+            embed_text=f"e {i}.{j}",
+            tokens=5,
+            page=j + 1 if i % 2 else None,
+        )
         for j in range(n_chunks)
     ]
     return doc, chunks
@@ -59,7 +76,10 @@ def test_round_trip_keeps_every_field(tmp_path: Path) -> None:
     d = r.document("notes/doc-3.md")
     assert d is not None
     assert (d.title, d.source, d.collection, d.kind) == (
-        "Doc 3", "/wiki/notes/doc-3.md", "notes", "markdown"
+        "Doc 3",
+        "/wiki/notes/doc-3.md",
+        "notes",
+        "markdown",
     )
     assert d.metadata == {"tags": ["t"], "n": 3} and d.content_hash == "hash-3"
     chunks = r.document_chunks("notes/doc-3.md")

@@ -10,14 +10,13 @@ from pathlib import Path
 import faiss
 import numpy as np
 import pytest
-
-from indexer.check import check_index, repair_index
-from indexer.chunking import Chunk, ChunkSettings
-from indexer.documents import Document, Section
-from indexer.embedding import HashingEmbedder, describe
-from indexer.errors import SettingsError
-from indexer.store import DATABASE, MANIFEST, IndexReader, IndexWriter, Manifest
-from indexer.vectors import (
+from sounding.indexer.check import check_index, repair_index
+from sounding.indexer.chunking import Chunk, ChunkSettings
+from sounding.indexer.documents import Document, Section
+from sounding.indexer.embedding import HashingEmbedder, describe
+from sounding.indexer.errors import SettingsError
+from sounding.indexer.store import DATABASE, MANIFEST, IndexReader, IndexWriter, Manifest
+from sounding.indexer.vectors import (
     EXACT,
     IVF,
     VectorChoice,
@@ -53,8 +52,9 @@ def brute_force(queries: np.ndarray, matrix: np.ndarray, ids: np.ndarray, k: int
 
 def recall_at(found: np.ndarray, exact: np.ndarray) -> float:
     """10-recall@10 (intersection of the two top-k id sets), averaged over queries."""
-    return float(np.mean([len(set(a) & set(b)) / exact.shape[1] for a, b in zip(
-        found, exact, strict=True)]))
+    return float(
+        np.mean([len(set(a) & set(b)) / exact.shape[1] for a, b in zip(found, exact, strict=True)])
+    )
 
 
 @pytest.fixture(scope="module")
@@ -73,10 +73,18 @@ def ivf(data) -> faiss.Index:
 
 # --- plans ---------------------------------------------------------------------------------
 
-@pytest.mark.parametrize(("n", "kind", "want"), [
-    (0, "auto", EXACT), (999, "auto", EXACT), (1000, "auto", IVF), (10**6, "exact", EXACT),
-    (50, "ivf", IVF), (0, "ivf", EXACT),  # nothing to train on
-])
+
+@pytest.mark.parametrize(
+    ("n", "kind", "want"),
+    [
+        (0, "auto", EXACT),
+        (999, "auto", EXACT),
+        (1000, "auto", IVF),
+        (10**6, "exact", EXACT),
+        (50, "ivf", IVF),
+        (0, "ivf", EXACT),  # nothing to train on
+    ],
+)
 def test_plan_kind_by_size_and_setting(n: int, kind: str, want: str) -> None:
     assert plan_vectors(n, 32, kind=kind, exact_below=1000).kind == want
 
@@ -96,6 +104,7 @@ def test_unknown_kind_names_the_choices() -> None:
 
 
 # --- search against numpy ------------------------------------------------------------------
+
 
 def test_exact_equals_brute_force_numpy(data) -> None:
     ids, matrix, queries = data
@@ -147,6 +156,7 @@ def test_ivf_selector_returns_only_allowed_ids_and_fills_k(data, ivf, allowed: i
 
 # --- rebuild decisions ---------------------------------------------------------------------
 
+
 def test_needs_rebuild_when_the_threshold_is_crossed_either_way(data, ivf) -> None:
     ids, matrix, _ = data
     exact = build_vectors(VectorPlan(EXACT), ids, matrix)
@@ -167,15 +177,25 @@ def test_needs_rebuild_when_the_collection_drifts_far_from_the_trained_size(ivf)
 
 # --- through the writer --------------------------------------------------------------------
 
+
 def doc_chunks(i: int, n: int) -> tuple[Document, list[Chunk]]:
-    doc = Document(id=f"d{i}.md", title=f"Doc {i}", source=f"/w/d{i}.md", modified=0.0,
-                   content_hash=f"h{i}", kind="markdown", sections=(Section((), "x"),))
-    return doc, [Chunk(ordinal=j, trail=(), text=f"t {i}.{j}", embed_text="", tokens=3)
-                 for j in range(n)]
+    doc = Document(
+        id=f"d{i}.md",
+        title=f"Doc {i}",
+        source=f"/w/d{i}.md",
+        modified=0.0,
+        content_hash=f"h{i}",
+        kind="markdown",
+        sections=(Section((), "x"),),
+    )
+    return doc, [
+        Chunk(ordinal=j, trail=(), text=f"t {i}.{j}", embed_text="", tokens=3) for j in range(n)
+    ]
 
 
-def put_docs(w: IndexWriter, first: int, count: int, rng: np.random.Generator,
-             per: int = 10) -> None:
+def put_docs(
+    w: IndexWriter, first: int, count: int, rng: np.random.Generator, per: int = 10
+) -> None:
     for i in range(first, first + count):
         doc, chunks = doc_chunks(i, per)
         # Documents gather along D axes, like topics.
@@ -241,8 +261,7 @@ def test_forced_kind_and_nprobe_setting(tmp_path: Path) -> None:
     with IndexWriter(tmp_path, MODEL, ChunkSettings(), vectors=VectorChoice("ivf")) as w:
         put_docs(w, 0, 20, rng)
         assert w.publish().vectors["kind"] == IVF  # 200 chunks, forced
-    with IndexWriter(tmp_path, MODEL, ChunkSettings(),
-                     vectors=VectorChoice("ivf", nprobe=3)) as w:
+    with IndexWriter(tmp_path, MODEL, ChunkSettings(), vectors=VectorChoice("ivf", nprobe=3)) as w:
         assert w.publish().vectors["nprobe"] == 3  # applied without retraining
     with IndexWriter(tmp_path, MODEL, ChunkSettings(), vectors=VectorChoice("exact")) as w:
         assert w.publish().vectors == {"kind": EXACT}
@@ -307,8 +326,10 @@ def test_check_finds_a_vector_file_of_another_kind_than_the_manifest(tmp_path: P
     data = json.loads(path.read_text())
     data["vectors"] = {"kind": EXACT}
     path.write_text(json.dumps(data))
-    assert "vectors-1.faiss holds an index of kind ivf, the manifest says exact" in check_index(
-        tmp_path).problems
+    assert (
+        "vectors-1.faiss holds an index of kind ivf, the manifest says exact"
+        in check_index(tmp_path).problems
+    )
 
 
 def test_a_lost_manifest_update_is_rolled_forward_with_the_files_vector_kind(
