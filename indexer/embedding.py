@@ -16,12 +16,15 @@ import os
 import re
 from collections.abc import Callable, Sequence
 from pathlib import Path
-from typing import Literal, Protocol
+from typing import TYPE_CHECKING, Literal, Protocol
 
 import numpy as np
 
 from .chunking import Tokenizer
 from .errors import ModelError, SettingsError
+
+if TYPE_CHECKING:  # imported for real only when the model loads (torch is slow to import)
+    from sentence_transformers import SentenceTransformer
 
 log = logging.getLogger(__name__)
 
@@ -97,7 +100,7 @@ class _HFTokenizer:
         out = self._tok(  # type: ignore[operator]
             text, add_special_tokens=False, return_offsets_mapping=True, verbose=False
         )
-        return [tuple(s) for s in out["offset_mapping"]]  # type: ignore[misc]
+        return [(int(s[0]), int(s[1])) for s in out["offset_mapping"]]
 
 
 def quiet_offline() -> None:
@@ -110,7 +113,7 @@ def quiet_offline() -> None:
         logging.getLogger(noisy).setLevel(logging.ERROR)
     import transformers
 
-    transformers.utils.logging.disable_progress_bar()
+    transformers.utils.logging.disable_progress_bar()  # type: ignore[no-untyped-call]
 
 
 def peek_model(path: Path) -> tuple[int, int] | None:
@@ -239,12 +242,12 @@ class SentenceTransformerEmbedder:
         # Decided now from the CPU flags (no torch import, so the model can stay unloaded).
         self.precision: Literal["fp32", "bf16"] = choose_precision(precision, cpu_flags())
         self.threads = threads or usable_cores()
-        self._model = None
+        self._model: SentenceTransformer | None = None
         self._tokenizer: Tokenizer | None = None
         self._peeked = peek_model(path)
 
     @property
-    def model(self):  # -> SentenceTransformer
+    def model(self) -> SentenceTransformer:
         """The loaded sentence-transformers model (loaded on first access)."""
         if self._model is None:
             try:
@@ -272,13 +275,19 @@ class SentenceTransformerEmbedder:
     def dimension(self) -> int:
         if self._peeked and self._model is None:
             return self._peeked[0]
-        return int(self.model.get_embedding_dimension())
+        dimension = self.model.get_embedding_dimension()
+        if dimension is None:
+            raise ModelError(f"the encoder at {self.path} does not say its vector dimension")
+        return int(dimension)
 
     @property
     def max_tokens(self) -> int:
         if self._peeked and self._model is None:
             return self._peeked[1]
-        return int(self.model.max_seq_length)
+        window = self.model.max_seq_length
+        if window is None:
+            raise ModelError(f"the encoder at {self.path} does not say its window (max_seq_length)")
+        return int(window)
 
     @property
     def tokenizer(self) -> Tokenizer:
@@ -298,7 +307,7 @@ class SentenceTransformerEmbedder:
             convert_to_tensor=True,
             show_progress_bar=False,
         )
-        rows = vectors.float().numpy()
+        rows: np.ndarray = vectors.float().numpy()
         rows /= np.maximum(np.linalg.norm(rows, axis=1, keepdims=True), 1e-12)
         return rows
 
@@ -361,7 +370,9 @@ class HashingEmbedder:
         self.texts_encoded = 0
 
     def _word(self, word: str) -> np.ndarray:
-        h = int.from_bytes(hashlib.blake2b(f"{self._seed}:{word}".encode(), digest_size=8).digest())
+        # Big-endian, as Python 3.11+ defaults to (3.10 requires the argument).
+        digest = hashlib.blake2b(f"{self._seed}:{word}".encode(), digest_size=8).digest()
+        h = int.from_bytes(digest, "big")
         return np.random.default_rng(h).standard_normal(self.dimension).astype(np.float32)
 
     def encode(self, texts: Sequence[str]) -> np.ndarray:

@@ -87,9 +87,9 @@ class JudgmentStore:
             "created_at) VALUES (?, ?, ?, ?, ?, ?, ?)",
             [qid, query.strip(), document_id, chunk_id, grade, user, now],
         )
-        return Judgment(
-            int(cur.lastrowid), qid, query.strip(), document_id, chunk_id, grade, user, now
-        )
+        row_id = cur.lastrowid
+        assert row_id is not None  # every INSERT sets it
+        return Judgment(row_id, qid, query.strip(), document_id, chunk_id, grade, user, now)
 
     def count(self) -> int:
         return int(self.conn.execute("SELECT count(*) FROM judgments").fetchone()[0])

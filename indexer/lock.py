@@ -15,6 +15,7 @@ import os
 import socket
 import time
 from pathlib import Path
+from typing import Any, TextIO
 
 from .errors import IndexLockedError, IndexStoreError
 
@@ -36,8 +37,8 @@ class IndexLock:
 
     def __init__(self, index_dir: Path) -> None:
         self.path = Path(index_dir) / LOCK_FILE
-        self._fh = None
-        self.took_over: dict | None = None
+        self._fh: TextIO | None = None
+        self.took_over: dict[str, Any] | None = None
 
     def acquire(self) -> IndexLock:
         try:
@@ -93,7 +94,7 @@ class IndexLock:
         self.release()
 
 
-def _read(text: str) -> dict:
+def _read(text: str) -> dict[str, Any]:
     try:
         data = json.loads(text)
     except ValueError:

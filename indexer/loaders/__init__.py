@@ -107,7 +107,7 @@ def iter_root(
         yield Skipped(root.name, "not a regular file")
 
 
-def _scan(folder: Path, here: str) -> list[os.DirEntry] | Skipped:
+def _scan(folder: Path, here: str) -> list[os.DirEntry[str]] | Skipped:
     """Entries of ``folder`` sorted by name, or why it cannot be read."""
     try:
         with os.scandir(folder) as it:
@@ -129,7 +129,7 @@ def _walk(folder: Path, parts: tuple[str, ...], limit: int) -> Iterator[Document
     if isinstance(first, Skipped):
         yield first
         return
-    stack: list[tuple[tuple[str, ...], Iterator[os.DirEntry]]] = [(parts, iter(first))]
+    stack: list[tuple[tuple[str, ...], Iterator[os.DirEntry[str]]]] = [(parts, iter(first))]
     while stack:
         parts, entries = stack[-1]
         entry = next(entries, None)

@@ -58,10 +58,11 @@ def decode_text(data: bytes, fallback: str | None = None) -> tuple[str, list[str
         try:
             text = data.decode("utf-8")
         except UnicodeDecodeError:
-            text = _decode_declared(data, fallback)
-            if text is None:
-                text = data.decode("utf-8", errors="replace")
+            declared = _decode_declared(data, fallback)
+            if declared is None:
+                declared = data.decode("utf-8", errors="replace")
                 warnings.append(INVALID_UTF8)
+            text = declared
     return normalise_newlines(text.lstrip("\ufeff")), warnings
 
 

@@ -4,11 +4,12 @@ from __future__ import annotations
 
 import gzip
 import hashlib
+import io
 import json
 import zlib
 from collections.abc import Iterator
 from pathlib import Path
-from typing import IO, Any
+from typing import Any
 
 from ..documents import Document, Section, Skipped
 from ..errors import LoadError
@@ -56,8 +57,10 @@ def iter_corpus(path: Path, rel: str, source: str, modified: float) -> Iterator[
         raise LoadError("no text")
 
 
-def _open(path: Path, gz: bool) -> IO[bytes]:
-    return gzip.open(path, "rb") if gz else path.open("rb")
+def _open(path: Path, gz: bool) -> io.BufferedIOBase:
+    if gz:
+        return gzip.open(path, "rb")  # a GzipFile reads bytes like any binary file
+    return path.open("rb")
 
 
 def _record(line: bytes, lineno: int, rel: str, source: str, modified: float) -> Document | Skipped:
