@@ -1,5 +1,8 @@
 """``sounding eval``: rank judged queries, score them, compare two runs.
 
+:func:`evaluate_collection` is the one "index, rank, score" of the project:
+the command, the quality tests and the benchmarks all call it.
+
 Metric names as the command reports them, and the trec_eval measure behind
 each (computed by pytrec_eval, see :mod:`indexer.evaluation`).
 """
@@ -12,12 +15,12 @@ from pathlib import Path
 
 import numpy as np
 
-from .build import refresh_index
 from .embedding import Embedder
 from .errors import IndexMissingError, SettingsError
 from .evaluation import evaluate, find_corpus, mean, read_qrels, read_queries, run_from_rankings
+from .indexcache import CachedIndex, build_index, cached_index
 from .search import Searcher, check_mode
-from .settings import IndexSettings
+from .settings import IndexSettings, searcher_factory
 from .significance import PairedTest, paired_t_test, randomisation_test
 from .store import IndexReader
 
@@ -37,6 +40,8 @@ class EvalResult:
     means: dict[str, float]
     per_query: dict[str, dict[str, float]]
     run: dict[str, dict[str, float]]
+    # The index ranked and how it was built; None when it was a scratch index, now gone.
+    index: CachedIndex | None = None
 
     def to_json(self) -> dict[str, float | int]:
         """Exactly the keys ``ndcg@10``, ``recall@100``, ``mrr@10``, ``map``, ``queries``."""
@@ -63,47 +68,93 @@ def read_judged(dataset_dir: Path) -> tuple[dict[str, str], dict[str, dict[str, 
     return judged, {q: qrels[q] for q in judged}
 
 
-def evaluate_dataset(
+def evaluate_collection(
     dataset_dir: Path,
+    mode: str,
     settings: IndexSettings,
     embedder: Embedder,
     *,
-    mode: str = "hybrid",
-    k: int = 100,
+    cache_dir: Path | None = None,
     index_dir: Path | None = None,
+    k: int = 100,
 ) -> EvalResult:
-    """Rank every judged query of ``dataset_dir`` and score the ranking.
+    """Index a BEIR-layout folder, rank every judged query in ``mode``, score the ranking.
 
-    With ``index_dir`` the index there is used (built from the folder's corpus
-    first if it does not exist yet), so several modes can share one index;
-    without it a scratch index is built and thrown away.
+    Where the index comes from, in order: ``index_dir`` (used as it is, built from
+    the folder's corpus first if it does not exist yet); the cache ``cache_dir``
+    (an entry per corpus content, encoder and chunk settings, built once and reused,
+    see :mod:`indexcache`); else a scratch index, thrown away afterwards. The
+    searcher is the configured one (:func:`searcher_factory`: rrf_k, re-ranker).
     """
     mode = check_mode(mode)
     if k < 1:
         raise SettingsError(f"k={k} must be 1 or more")
+    if index_dir is not None and cache_dir is not None:
+        raise SettingsError("name an index folder or an evaluation cache, not both")
     dataset_dir = Path(dataset_dir)
     queries, qrels = read_judged(dataset_dir)
     if index_dir is not None:
+        # A folder of judgments alone (`sounding judgments export`) ranks an existing
+        # index: the corpus is looked for only when the index must be built.
+        index_dir = Path(index_dir)
         try:
             reader = IndexReader(index_dir)
+            built = CachedIndex(index_dir, None, 0.0, reused=True)
         except IndexMissingError:
-            build = settings.model_copy(update={"index_dir": Path(index_dir)})
-            refresh_index([find_corpus(dataset_dir)], build, embedder)
+            report, seconds = build_index(find_corpus(dataset_dir), settings, embedder, index_dir)
+            built = CachedIndex(index_dir, report, seconds, reused=False)
             reader = IndexReader(index_dir)
-        return _rank(Searcher(reader, embedder, rrf_k=settings.rrf_k), queries, qrels, mode, k)
+        return _rank(reader, built, settings, embedder, queries, qrels, mode, k)
+    corpus = find_corpus(dataset_dir)
+    if cache_dir is not None:
+        built = cached_index(corpus, settings, embedder, cache_dir)
+        reader = IndexReader(built.index_dir)
+        return _rank(reader, built, settings, embedder, queries, qrels, mode, k)
     with tempfile.TemporaryDirectory(prefix="sounding-eval-") as scratch:
-        build = settings.model_copy(update={"index_dir": Path(scratch) / "index"})
-        refresh_index([find_corpus(dataset_dir)], build, embedder)
-        searcher = Searcher(IndexReader(build.index_dir), embedder, rrf_k=settings.rrf_k)
-        return _rank(searcher, queries, qrels, mode, k)
+        index = Path(scratch) / "index"
+        report, seconds = build_index(corpus, settings, embedder, index)
+        built = CachedIndex(index, report, seconds, reused=False)
+        result = _rank(IndexReader(index), built, settings, embedder, queries, qrels, mode, k)
+    result.index = None  # the scratch folder is gone
+    return result
 
 
-def _rank(searcher: Searcher, queries, qrels, mode: str, k: int) -> EvalResult:
-    ids = sorted(queries)
-    rankings = searcher.rank_documents([queries[q] for q in ids], k, mode=mode)
+def _rank(
+    reader: IndexReader,
+    built: CachedIndex,
+    settings: IndexSettings,
+    embedder: Embedder,
+    queries: dict[str, str],
+    qrels: dict[str, dict[str, int]],
+    mode: str,
+    k: int,
+) -> EvalResult:
+    """Rank every query with the configured searcher over ``reader`` (closed after), score."""
+    try:
+        searcher = searcher_factory(settings, embedder)(reader)
+        ids = sorted(queries)
+        texts = [queries[q] for q in ids]
+        if searcher.reranker is None:
+            rankings = searcher.rank_documents(texts, k, mode=mode)
+        else:
+            rankings = [_reranked_documents(searcher, text, k, mode) for text in texts]
+    finally:
+        reader.close()
     run = run_from_rankings(ids, rankings)
     means, per_query = score_run(run, qrels)
-    return EvalResult(mode=mode, means=means, per_query=per_query, run=run)
+    return EvalResult(mode=mode, means=means, per_query=per_query, run=run, index=built)
+
+
+def _reranked_documents(searcher: Searcher, text: str, k: int, mode: str):
+    """Documents ranked as the service ranks passages with the re-ranker, one per document.
+
+    ``rank_documents`` has no re-ranking step; ``search`` re-ranks its top
+    ``rerank_depth`` passages. Scores are rank-based: the re-ranked head's
+    cross-encoder scores and the tail's are not comparable, and trec_eval
+    orders a run by score.
+    """
+    hits = searcher.search(text, k, mode=mode, max_per_document=1)
+    return [(h.document_id, float(len(hits) - i)) for i, h in enumerate(hits)]
 
 
 @dataclass(frozen=True)

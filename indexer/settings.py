@@ -2,14 +2,21 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from pathlib import Path
-from typing import Literal
+from typing import TYPE_CHECKING, Literal
 
 from pydantic import Field
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 from .chunking import ChunkSettings
 from .vectors import DEFAULT_EXACT_BELOW, VectorChoice
+
+if TYPE_CHECKING:  # search and rerank pull in FAISS and torch: imported when used
+    from .embedding import Embedder
+    from .rerank import Reranker
+    from .search import Searcher
+    from .store import IndexReader
 
 
 class IndexSettings(BaseSettings):
@@ -47,6 +54,18 @@ class IndexSettings(BaseSettings):
     )
     rrf_k: int = Field(
         60, ge=0, description="k of reciprocal rank fusion in hybrid mode (Cormack et al. 2009)."
+    )
+    reranker_path: Path | None = Field(
+        None,
+        description="Local sentence-transformers cross-encoder folder; re-ranks the top "
+        "candidates when set. Off by default: no reranker ships with sounding.",
+    )
+    rerank_depth: int = Field(50, ge=1, le=1000, description="Candidates the reranker sees.")
+    eval_cache: Path | None = Field(
+        None,
+        description="Folder where `sounding eval` keeps the indexes it builds, one per "
+        "collection content, encoder and chunk settings, and reuses them; empty means a "
+        "scratch index per run.",
     )
     judgments_path: Path | None = Field(
         None,
@@ -107,3 +126,37 @@ class IndexSettings(BaseSettings):
             precision=self.precision,
             threads=self.threads,
         )
+
+    def reranker(self) -> Reranker | None:
+        """Load the configured cross-encoder, or None when none is configured."""
+        if self.reranker_path is None:
+            return None
+        from .rerank import CrossEncoderReranker
+
+        return CrossEncoderReranker(self.reranker_path, batch_size=self.batch_size)
+
+
+def searcher_factory(
+    settings: IndexSettings, embedder: Embedder
+) -> Callable[[IndexReader], Searcher]:
+    """Make searchers over readers with the ranking options of ``settings``.
+
+    The one place a :class:`Searcher` is configured (rrf_k, the re-ranker and
+    its depth), so the service, ``sounding search``, ``sounding eval`` and the
+    benchmarks rank alike. The re-ranker, if configured, loads once here and
+    serves every searcher made.
+    """
+    from .search import Searcher
+
+    reranker = settings.reranker()
+
+    def make(reader: IndexReader) -> Searcher:
+        return Searcher(
+            reader,
+            embedder,
+            rrf_k=settings.rrf_k,
+            reranker=reranker,
+            rerank_depth=settings.rerank_depth,
+        )
+
+    return make

@@ -128,19 +128,9 @@ class ServiceSettings(IndexSettings):
     def searcher_factory(self, embedder):  # -> Callable[[IndexReader], Searcher]
         """Make searchers over readers with these settings' ranking options.
 
-        The reranker, if configured, loads once here and serves every searcher.
+        The indexer's one searcher builder (:func:`sounding.indexer.settings.searcher_factory`):
+        the reranker, if configured, loads once there and serves every searcher.
         """
-        from sounding.indexer.search import Searcher
+        from sounding.indexer.settings import searcher_factory
 
-        reranker = self.reranker()
-
-        def make(reader):
-            return Searcher(
-                reader,
-                embedder,
-                rrf_k=self.rrf_k,
-                reranker=reranker,
-                rerank_depth=self.rerank_depth,
-            )
-
-        return make
+        return searcher_factory(self, embedder)

@@ -5,9 +5,13 @@ from __future__ import annotations
 import gzip
 import json
 import math
+import subprocess
+import sys
 from pathlib import Path
 
+import numpy as np
 import pytest
+from sounding.indexer.embedding import HashingEmbedder
 from sounding.indexer.errors import SettingsError
 from sounding.indexer.evaluation import (
     evaluate,
@@ -21,6 +25,9 @@ from sounding.indexer.evaluation import (
     truncate,
     write_run,
 )
+from sounding.indexer.experiment import evaluate_collection
+from sounding.indexer.indexcache import cache_key, cached_index
+from sounding.indexer.settings import IndexSettings
 
 EXPECTED_QRELS = {"1": {"d1": 2, "d2": 0}, "2": {"d3": 1}}
 
@@ -250,3 +257,155 @@ def test_mean_of_nothing_is_empty() -> None:
 def test_run_from_rankings() -> None:
     rankings = [[("d1", 0.5), ("d2", 0.25)], []]
     assert run_from_rankings(["a", "b"], rankings) == {"a": {"d1": 0.5, "d2": 0.25}, "b": {}}
+
+
+# --- evaluate_collection and the index cache -----------------------------------------
+
+
+def tiny_collection(folder: Path, words: str = "pump valve boiler canteen") -> Path:
+    """A BEIR-layout folder: one document per word, one judged query per document."""
+    folder.mkdir(parents=True, exist_ok=True)
+    names = words.split()
+    with open(folder / "corpus.jsonl", "w", encoding="utf-8") as fh:
+        for i, w in enumerate(names):
+            text = f"the {w} sits in hall {i}; the {w} is checked daily"
+            fh.write(json.dumps({"_id": f"d{i}", "title": w.title(), "text": text}) + "\n")
+    with open(folder / "queries.jsonl", "w", encoding="utf-8") as fh:
+        for i, w in enumerate(names):
+            fh.write(json.dumps({"_id": f"q{i}", "text": f"{w} hall"}) + "\n")
+    (folder / "qrels.tsv").write_text(
+        "query-id\tcorpus-id\tscore\n" + "".join(f"q{i}\td{i}\t1\n" for i in range(len(names))),
+        encoding="utf-8",
+    )
+    return folder
+
+
+@pytest.fixture
+def collection(tmp_path: Path) -> Path:
+    return tiny_collection(tmp_path / "tiny")
+
+
+def settings_for(tmp_path: Path, **overrides) -> IndexSettings:
+    return IndexSettings(index_dir=tmp_path / "unused", **overrides)
+
+
+@pytest.mark.parametrize("mode", ["dense", "lexical", "hybrid"])
+def test_evaluate_collection_scores_every_judged_query(tmp_path, collection, mode) -> None:
+    result = evaluate_collection(collection, mode, settings_for(tmp_path), HashingEmbedder(16))
+    assert result.mode == mode and set(result.per_query) == {"q0", "q1", "q2", "q3"}
+    assert result.means["ndcg@10"] == pytest.approx(1.0)  # each query names its document
+    assert set(result.to_json()) == {"ndcg@10", "recall@100", "mrr@10", "map", "queries"}
+    assert result.index is None  # a scratch index, removed
+
+
+def test_cache_builds_once_and_reuses_the_index(tmp_path, collection) -> None:
+    cache, embedder = tmp_path / "cache", HashingEmbedder(16)
+    first = evaluate_collection(
+        collection, "dense", settings_for(tmp_path), embedder, cache_dir=cache
+    )
+    encoded = embedder.texts_encoded
+    again = evaluate_collection(
+        collection, "hybrid", settings_for(tmp_path), embedder, cache_dir=cache
+    )
+    assert not first.index.reused and again.index.reused
+    assert again.index.index_dir == first.index.index_dir
+    assert again.index.report.to_json() == first.index.report.to_json()
+    assert embedder.texts_encoded - encoded == 4  # the queries only, no document
+    assert [p.name for p in cache.iterdir()] == [first.index.index_dir.parent.name]
+
+
+def test_cache_key_follows_corpus_model_and_chunking(tmp_path, collection) -> None:
+    base = cache_key(collection / "corpus.jsonl", settings_for(tmp_path), HashingEmbedder(16))
+    assert base == cache_key(
+        collection / "corpus.jsonl", settings_for(tmp_path, batch_size=64), HashingEmbedder(16)
+    )
+    other_model = cache_key(
+        collection / "corpus.jsonl", settings_for(tmp_path), HashingEmbedder(16, seed=1)
+    )
+    other_chunks = cache_key(
+        collection / "corpus.jsonl", settings_for(tmp_path, chunk_tokens=64), HashingEmbedder(16)
+    )
+    changed = tiny_collection(tmp_path / "changed", "pump valve boiler kettle")
+    other_corpus = cache_key(changed / "corpus.jsonl", settings_for(tmp_path), HashingEmbedder(16))
+    assert len({base, other_model, other_chunks, other_corpus}) == 4
+
+
+def test_an_interrupted_build_leaves_no_entry(tmp_path, collection, monkeypatch) -> None:
+    from sounding.indexer import indexcache
+
+    def killed(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(indexcache, "refresh_index", killed)
+    cache = tmp_path / "cache"
+    with pytest.raises(KeyboardInterrupt):
+        cached_index(
+            collection / "corpus.jsonl", settings_for(tmp_path), HashingEmbedder(16), cache
+        )
+    assert list(cache.iterdir()) == []
+    monkeypatch.undo()
+    built = cached_index(
+        collection / "corpus.jsonl", settings_for(tmp_path), HashingEmbedder(16), cache
+    )
+    assert not built.reused and built.report.documents == 4
+
+
+def test_a_killed_builders_folder_is_swept(tmp_path, collection) -> None:
+    cache = tmp_path / "cache"
+    embedder = HashingEmbedder(16)
+    key = cache_key(collection / "corpus.jsonl", settings_for(tmp_path), embedder)
+    dead = subprocess.Popen([sys.executable, "-c", "pass"])
+    dead.wait()
+    stale = cache / f".building-tiny-{key}-{dead.pid}-x"
+    stale.mkdir(parents=True)
+    cached_index(collection / "corpus.jsonl", settings_for(tmp_path), embedder, cache)
+    assert not stale.exists()
+
+
+def test_index_folder_of_judgments_alone(tmp_path, collection) -> None:
+    # `sounding judgments export` writes no corpus: an existing index is ranked as it is.
+    index = tmp_path / "index"
+    embedder = HashingEmbedder(16)
+    built = evaluate_collection(
+        collection, "lexical", settings_for(tmp_path), embedder, index_dir=index
+    )
+    assert not built.index.reused
+    (collection / "corpus.jsonl").unlink()
+    again = evaluate_collection(
+        collection, "lexical", settings_for(tmp_path), embedder, index_dir=index
+    )
+    assert again.index.reused and again.means == built.means
+
+
+def test_index_and_cache_together_are_refused(tmp_path, collection) -> None:
+    with pytest.raises(SettingsError, match="not both"):
+        evaluate_collection(
+            collection,
+            "dense",
+            settings_for(tmp_path),
+            HashingEmbedder(16),
+            index_dir=tmp_path / "i",
+            cache_dir=tmp_path / "c",
+        )
+
+
+class ReversingReranker:
+    """Scores passages so that the first-ranked one comes last."""
+
+    name = "reversing"
+
+    def __init__(self) -> None:
+        self.calls = 0
+
+    def score(self, query: str, passages):
+        self.calls += 1
+        return np.arange(len(passages), dtype=np.float32)
+
+
+def test_evaluation_honours_a_configured_reranker(tmp_path, collection, monkeypatch) -> None:
+    reranker = ReversingReranker()
+    monkeypatch.setattr(IndexSettings, "reranker", lambda self: reranker)
+    result = evaluate_collection(collection, "lexical", settings_for(tmp_path), HashingEmbedder(16))
+    assert reranker.calls == 4
+    # Each query's one relevant document is ranked first by BM25, then last by the reranker.
+    assert result.means["ndcg@10"] < 1.0 and result.means["recall@100"] == 1.0
