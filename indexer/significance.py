@@ -4,7 +4,7 @@ Pure functions over two equal-length arrays (system A, system B, one value
 per query). Two tests, both two-sided:
 
 - the paired t-test (Student 1908; as in Smucker, Allan and Carterette,
-  CIKM 2007, for IR evaluation);
+  CIKM 2007, for IR evaluation), computed by ``scipy.stats.ttest_rel``;
 - the paired randomisation (sign-flip permutation) test, exact for up to
   ``EXACT_MAX`` queries and Monte Carlo, seeded, above.
 """
@@ -32,21 +32,24 @@ class PairedTest:
 
 
 def paired_t_test(a: np.ndarray, b: np.ndarray) -> PairedTest:
-    """Two-sided paired t-test of the mean of ``b - a`` against 0."""
+    """Two-sided paired t-test of the mean of ``b - a`` against 0 (``scipy.stats.ttest_rel``).
+
+    Degenerate inputs, where scipy answers nan, get a definite answer: fewer
+    than two queries, or differences without spread, are "not different"
+    unless the shift is non-zero.
+    """
     d = _differences(a, b)
     n = len(d)
-    mean = float(d.mean())
+    mean = float(d.mean()) if n else math.nan
     if n < 2:
         return PairedTest(mean, math.nan, 1.0, "paired t-test")
-    sd = float(d.std(ddof=1))
-    if sd == 0.0:
+    if float(d.std(ddof=1)) == 0.0:
         # No spread: identical systems are not different; a constant shift is.
         return PairedTest(
             mean, math.inf if mean else math.nan, 0.0 if mean else 1.0, "paired t-test"
         )
-    t = mean / (sd / math.sqrt(n))
-    p = 2.0 * float(stats.t.sf(abs(t), df=n - 1))
-    return PairedTest(mean, t, min(p, 1.0), "paired t-test")
+    result = stats.ttest_rel(np.asarray(b, dtype=np.float64), np.asarray(a, dtype=np.float64))
+    return PairedTest(mean, float(result.statistic), float(result.pvalue), "paired t-test")
 
 
 def randomisation_test(

@@ -25,6 +25,26 @@ def test_t_test_matches_scipy_ttest_rel(seed: int, n: int, shift: float) -> None
     assert ours.mean_difference == pytest.approx(float(np.mean(b - a)))
 
 
+def test_t_test_is_scipy_ttest_rel_on_a_worked_example() -> None:
+    # Reference: scipy.stats.ttest_rel (two-sided); the figure by hand is
+    # t = mean(d) / (sd(d) / sqrt(n)) with d = b - a = (0.1, 0.2, -0.1, 0.3).
+    a = np.array([0.1, 0.5, 0.9, 0.3])
+    b = np.array([0.2, 0.7, 0.8, 0.6])
+    ours = paired_t_test(a, b)
+    ref = stats.ttest_rel(b, a)
+    assert (ours.statistic, ours.p_value) == (float(ref.statistic), float(ref.pvalue))
+    d = b - a
+    assert ours.statistic == pytest.approx(d.mean() / (d.std(ddof=1) / 2.0), rel=1e-12)
+    assert ours.p_value == pytest.approx(2 * stats.t.sf(ours.statistic, df=3), rel=1e-12)
+
+
+def test_t_test_answers_where_scipy_gives_nan() -> None:
+    one = paired_t_test(np.array([0.2]), np.array([0.4]))
+    assert one.p_value == 1.0 and np.isnan(one.statistic)
+    constant = paired_t_test(np.zeros(3), np.full(3, 0.5))
+    assert constant.p_value == 0.0 and constant.statistic == float("inf")
+
+
 def _scipy_permutation(a: np.ndarray, b: np.ndarray, n_resamples: float) -> float:
     # scipy.stats.permutation_test with permutation_type="samples" flips each pair,
     # i.e. the sign of each paired difference: the same null as ours.
