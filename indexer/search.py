@@ -12,21 +12,27 @@ from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
 from functools import cached_property
-from typing import Literal
 
 from .embedding import Embedder, describe
-from .errors import QueryError
 from .fusion import RRF_K, fusion_depth, tiered_fusion
 from .lexical import fts5_query
+from .query import MODES, Mode, Query, check_mode, make_query
 from .rerank import Reranker
 from .rerank import rerank as _rerank
 from .selection import SearchFilter
 from .store import IndexReader, check_model
 
-__all__ = ["MODES", "Hit", "Mode", "SearchFilter", "Searcher", "Timings", "check_mode"]
-
-Mode = Literal["dense", "lexical", "hybrid"]
-MODES: tuple[Mode, ...] = ("dense", "lexical", "hybrid")
+__all__ = [
+    "MODES",
+    "Hit",
+    "Mode",
+    "Query",
+    "SearchFilter",
+    "Searcher",
+    "Timings",
+    "check_mode",
+    "make_query",
+]
 
 # Candidates each ranking contributes to a fusion, at the least.
 _FUSION_DEPTH = 100
@@ -71,13 +77,6 @@ class Timings:
 
 
 _UNTIMED = Timings()  # stages of calls nobody asked to time land here and are ignored
-
-
-def check_mode(mode: str) -> Mode:
-    """``mode`` if it is one of MODES, else QueryError naming the choices."""
-    if mode not in MODES:
-        raise QueryError(f"mode={mode!r} is not one of {', '.join(MODES)}")
-    return mode  # type: ignore[return-value]
 
 
 class Searcher:
@@ -168,9 +167,35 @@ class Searcher:
 
     # -- passages -------------------------------------------------------------
 
+    def query(
+        self,
+        text: str,
+        k: int = 10,
+        *,
+        mode: str = "hybrid",
+        max_per_document: int | None = None,
+        rerank: bool | None = None,
+        where: SearchFilter | None = None,
+        max_k: int | None = None,
+        max_query_chars: int | None = None,
+    ) -> Query:
+        """A :class:`Query` checked against this searcher (is there a reranker?) and the
+        given limits; QueryError naming what is wrong. See :func:`make_query`."""
+        return make_query(
+            text,
+            k,
+            mode=mode,
+            max_per_document=max_per_document,
+            rerank=rerank,
+            where=where,
+            can_rerank=self.reranker is not None,
+            max_k=max_k,
+            max_query_chars=max_query_chars,
+        )
+
     def search(
         self,
-        query: str,
+        text: str,
         k: int = 10,
         *,
         mode: str = "hybrid",
@@ -179,38 +204,34 @@ class Searcher:
         where: SearchFilter | None = None,
         timings: Timings | None = None,
     ) -> list[Hit]:
-        """The ``k`` passages that best match ``query``, best first.
+        """The ``k`` passages that best match ``text``, best first: :meth:`query`, then
+        :meth:`run`. ``where`` restricts the documents searched (None: everything);
+        ``rerank`` None means "when a reranker is configured"."""
+        query = self.query(
+            text, k, mode=mode, max_per_document=max_per_document, rerank=rerank, where=where
+        )
+        return self.run(query, timings)
 
-        ``where`` restricts the documents searched (the caller's groups and
-        the user's filters); None searches everything.
+    def run(self, query: Query, timings: Timings | None = None) -> list[Hit]:
+        """The passages of a checked ``query``, best first, at most ``query.k``.
 
-        ``rerank`` re-orders the top ``rerank_depth`` candidates with the
-        cross-encoder; None means "when one is configured". Asking for it
-        without one configured is a QueryError.
+        With a reranker (and ``query.rerank`` not False) the top ``rerank_depth``
+        candidates are re-ordered by the cross-encoder.
         """
-        mode = check_mode(mode)
-        query = query.strip()
-        if not query:
-            raise QueryError("the query is empty; send some words to search for")
-        if k < 1:
-            raise QueryError(f"k={k} must be 1 or more")
+        k, where, max_per_document = query.k, query.where, query.max_per_document
         # Dig deeper than k when passages per document are capped.
         depth = k if max_per_document is None else k * 4 + 32
-        if rerank and self.reranker is None:
-            raise QueryError(
-                "rerank was asked for but no reranker is configured (setting reranker_path)"
-            )
-        use_reranker = self.reranker is not None and rerank is not False
+        use_reranker = self.reranker is not None and query.rerank is not False
         if use_reranker:
             depth = max(depth, self.rerank_depth)
         timings = timings or _UNTIMED
-        ranked = self.ranked_chunks(query, depth, mode, where, timings)
+        ranked = self.ranked_chunks(query.text, depth, query.mode, where, timings)
         with timings.stage("fetch"):
             chunks = self.reader.chunks([c for c, _ in ranked])
         if use_reranker:
             pool = [(c, chunks[c].text) for c, _ in ranked[: self.rerank_depth] if c in chunks]
             with timings.stage("rerank"):
-                ranked = _rerank(query, pool, self.reranker) + ranked[self.rerank_depth :]
+                ranked = _rerank(query.text, pool, self.reranker) + ranked[self.rerank_depth :]
         with timings.stage("fetch"):
             docs = self.reader.documents(c.document_id for c in chunks.values())
         hits: list[Hit] = []

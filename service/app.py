@@ -58,6 +58,7 @@ def create_app(
         try:
             yield
         finally:
+            app.state.engine.close()
             app.state.keys.close()
             app.state.judgments.close()
 

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from datetime import datetime, timezone
 
-from fastapi import HTTPException
 from pydantic import BaseModel, Field
 from sounding.indexer.search import SearchFilter
 from sounding.indexer.store import DocumentRecord
@@ -68,13 +67,3 @@ def readable(caller: Caller, doc: DocumentRecord | None) -> DocumentRecord | Non
     if doc is None or not caller_filter(caller).admits(doc):
         return None
     return doc
-
-
-def check_query_length(query: str, max_chars: int) -> None:
-    """422 naming the limit when ``query`` is longer than ``max_chars`` (max_query_chars)."""
-    if len(query) > max_chars:
-        raise HTTPException(
-            422,
-            f"query is {len(query)} characters, over the limit of {max_chars} "
-            "(setting max_query_chars)",
-        )

@@ -35,8 +35,8 @@ except ImportError:  # older FastAPI: included routes are in app.routes already
     _iter_route_contexts = None
 
 from sounding.indexer import __version__
-from sounding.indexer.search import Searcher
-from sounding.indexer.store import read_last_run
+from sounding.indexer.query import MODES as _MODES
+from sounding.indexer.store import IndexReader, read_last_run
 
 from .limits import ASGIApp, Message, Receive, Scope, Send
 from .logs import ACCESS_LOGGER, REQUEST_ID_HEADER, accept_request_id, request_id_var
@@ -44,7 +44,7 @@ from .logs import ACCESS_LOGGER, REQUEST_ID_HEADER, accept_request_id, request_i
 # The classic Prometheus text exposition format, 0.0.4, which every scraper reads
 # (https://prometheus.io/docs/instrumenting/exposition_formats/).
 CONTENT_TYPE = "text/plain; version=0.0.4; charset=utf-8"
-MODES = frozenset({"dense", "lexical", "hybrid"})
+MODES = frozenset(_MODES)
 NO_MODE = "none"
 UNMATCHED = "unmatched"
 METHODS = frozenset({"GET", "HEAD", "POST", "PUT", "PATCH", "DELETE", "OPTIONS"})
@@ -110,20 +110,19 @@ class _IndexCollector(Collector):
 
     def __init__(self, index_dir: Path) -> None:
         self.index_dir = Path(index_dir)
-        self.searcher: Searcher | None = None  # set by ServiceMetrics.render, per scrape
+        self.reader: IndexReader | None = None  # set by ServiceMetrics.render, per scrape
 
     def describe(self) -> list[Metric]:
         return []  # values exist only at scrape time; nothing to check at registration
 
     def collect(self) -> Iterator[Metric]:
-        searcher = self.searcher
+        reader = self.reader
         loaded = GaugeMetricFamily(
             "sounding_index_loaded", "1 when an index generation is loaded and served, else 0."
         )
-        loaded.add_metric([], 1.0 if searcher is not None else 0.0)
+        loaded.add_metric([], 1.0 if reader is not None else 0.0)
         yield loaded
-        if searcher is not None:
-            reader = searcher.reader
+        if reader is not None:
             docs, chunks = reader.counts()
             for name, doc, value in (
                 ("sounding_index_documents", "Documents in the served generation.", docs),
@@ -207,14 +206,14 @@ class ServiceMetrics:
         self.requests.labels(route, method, mode, code).inc()
         self.latency.labels(route, method, mode).observe(seconds)
 
-    def render(self, searcher: Searcher | None) -> bytes:
-        """The text exposition, with index gauges read from ``searcher`` now."""
-        with self._lock:  # one scrape at a time sees its own searcher
-            self._index.searcher = searcher
+    def render(self, reader: IndexReader | None) -> bytes:
+        """The text exposition, with index gauges read from ``reader`` (None: no index) now."""
+        with self._lock:  # one scrape at a time sees its own reader
+            self._index.reader = reader
             try:
                 return generate_latest(self.registry)
             finally:
-                self._index.searcher = None
+                self._index.reader = None
 
 
 class _Static(Collector):

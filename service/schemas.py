@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
+from sounding.indexer.query import Mode
 
 from .filters import FilterFields
 
@@ -24,7 +25,7 @@ class SearchRequest(FilterFields):
         description="Re-rank the top candidates with the configured cross-encoder; by "
         "default on when one is configured. true without one configured is a 422.",
     )
-    mode: Literal["dense", "lexical", "hybrid"] = Field(
+    mode: Mode = Field(
         "hybrid",
         description="dense: meaning (encoder vectors); lexical: words (BM25); "
         "hybrid: both, fused by reciprocal rank.",
@@ -205,9 +206,7 @@ class ContextRequest(FilterFields):
         description="Most passages from any one document (adjacent windows "
         "joined into one passage count once).",
     )
-    mode: Literal["dense", "lexical", "hybrid"] = Field(
-        "hybrid", description="Ranking, as for /search."
-    )
+    mode: Mode = Field("hybrid", description="Ranking, as for /search.")
     rerank: bool | None = Field(
         None, description="Re-rank with the configured cross-encoder, as for /search."
     )

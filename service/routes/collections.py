@@ -5,7 +5,7 @@ from __future__ import annotations
 from fastapi import APIRouter
 
 from ..auth import ReadCaller
-from ..deps import SearcherDep
+from ..deps import ReaderDep
 from ..filters import caller_filter
 from ..schemas import CollectionOut, CollectionsResponse, ErrorResponse
 
@@ -17,10 +17,10 @@ router = APIRouter(tags=["collections"])
     response_model=CollectionsResponse,
     responses={503: {"model": ErrorResponse}},
 )
-def collections(searcher: SearcherDep, caller: ReadCaller) -> CollectionsResponse:
+def collections(reader: ReaderDep, caller: ReadCaller) -> CollectionsResponse:
     """Collection names and how many of their documents the caller may read.
 
     A collection whose documents are all hidden from the caller is not listed.
     """
-    pairs = searcher.reader.collections(caller_filter(caller))
+    pairs = reader.collections(caller_filter(caller))
     return CollectionsResponse(collections=[CollectionOut(name=n, documents=c) for n, c in pairs])

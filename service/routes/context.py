@@ -5,12 +5,11 @@ from __future__ import annotations
 import time
 
 from fastapi import APIRouter, HTTPException, Request
-from sounding.indexer.errors import QueryError
 from sounding.indexer.grounding import select_context, token_counter
 
 from ..auth import ReadCaller
-from ..deps import SearcherDep, SettingsDep
-from ..filters import check_query_length, search_filter
+from ..deps import GenerationDep, SettingsDep
+from ..filters import search_filter
 from ..metrics import record_mode
 from ..schemas import ContextPassageOut, ContextRequest, ContextResponse, ErrorResponse
 
@@ -40,14 +39,26 @@ def candidate_pool(budget: int, unit: str) -> int:
 def context(
     body: ContextRequest,
     request: Request,
-    searcher: SearcherDep,
+    generation: GenerationDep,
     settings: SettingsDep,
     caller: ReadCaller,
 ) -> ContextResponse:
     """The best passages for a query whose numbered, cited text block fits ``budget``."""
     record_mode(request, body.mode)
     started = time.perf_counter()
-    check_query_length(body.query, settings.max_query_chars)
+    searcher = generation.searcher
+    # A QueryError here is the app's 422, with its reason.
+    query = searcher.query(
+        body.query,
+        candidate_pool(body.budget, body.unit),
+        mode=body.mode,
+        # Loose, so adjacent windows of one document can join into one passage, yet
+        # one long document cannot fill the whole pool.
+        max_per_document=max(PER_DOCUMENT_POOL, 4 * body.max_per_document),
+        rerank=body.rerank,
+        where=search_filter(caller, body),
+        max_query_chars=settings.max_query_chars,
+    )
     limit, setting = (
         (settings.max_context_tokens, "max_context_tokens")
         if body.unit == "tokens"
@@ -58,19 +69,7 @@ def context(
             422,
             f"budget={body.budget} {body.unit} is over the limit of {limit} (setting {setting})",
         )
-    try:
-        hits = searcher.search(
-            body.query,
-            candidate_pool(body.budget, body.unit),
-            mode=body.mode,
-            # Loose, so adjacent windows of one document can join into one passage, yet
-            # one long document cannot fill the whole pool.
-            max_per_document=max(PER_DOCUMENT_POOL, 4 * body.max_per_document),
-            rerank=body.rerank,
-            where=search_filter(caller, body),
-        )
-    except QueryError as exc:
-        raise HTTPException(422, str(exc)) from exc
+    hits = searcher.run(query)
     count = token_counter(searcher.embedder.tokenizer) if body.unit == "tokens" else len
     chosen = select_context(hits, body.budget, count, max_per_document=body.max_per_document)
     return ContextResponse(
@@ -79,7 +78,7 @@ def context(
         unit=body.unit,
         used=chosen.used,
         mode=body.mode,
-        generation=searcher.reader.generation,
+        generation=generation.number,
         took_ms=round((time.perf_counter() - started) * 1000, 3),
         passages=[
             ContextPassageOut(

@@ -20,7 +20,7 @@ from sounding.indexer.errors import IndexLockedError, LoadError, SettingsError
 from sounding.indexer.loaders import parse_document
 
 from ..auth import ReadCaller, WriteCaller
-from ..deps import EngineDep, SearcherDep, SettingsDep
+from ..deps import EngineDep, MaybeGenerationDep, ReaderDep, SettingsDep
 from ..filters import readable
 from ..schemas import ChunkOut, DocumentResponse, ErrorResponse, PushRequest, PushResponse
 
@@ -77,10 +77,9 @@ def _not_found(document_id: str) -> HTTPException:
     responses={404: {"model": ErrorResponse}, 503: {"model": ErrorResponse}},
 )
 def get_document(
-    document_id: DocumentId, searcher: SearcherDep, caller: ReadCaller
+    document_id: DocumentId, reader: ReaderDep, caller: ReadCaller
 ) -> DocumentResponse:
     """A document by id (its path relative to the indexed folder, or its corpus ``_id``)."""
-    reader = searcher.reader
     doc = readable(caller, reader.document(document_id))
     if doc is None:
         raise _not_found(document_id)
@@ -198,6 +197,7 @@ def put_document(
     caller: WriteCaller,
     settings: SettingsDep,
     engine: EngineDep,
+    generation: MaybeGenerationDep,
     pushed: Annotated[tuple[PushRequest, bytes, str], Depends(_push_body)],
 ) -> PushResponse:
     """Add or replace a document; searchable when this returns (needs scope write).
@@ -207,9 +207,8 @@ def put_document(
     check_document_id(document_id)
     meta, data, kind = pushed
     collection = meta.collection or settings.push_collection
-    current = engine.current()
-    if current is not None:
-        existing = current.reader.document(document_id)
+    if generation is not None:
+        existing = generation.reader.document(document_id)
         if existing is not None and readable(caller, existing) is None:
             raise _not_found(document_id)  # not yours to see, so not yours to replace
     try:
@@ -271,11 +270,11 @@ def remove_document(
     caller: WriteCaller,
     settings: SettingsDep,
     engine: EngineDep,
-    searcher: SearcherDep,
+    reader: ReaderDep,
 ) -> PushResponse:
     """Remove a document from the index (needs scope write); 404 when there is none."""
     check_document_id(document_id)
-    if readable(caller, searcher.reader.document(document_id)) is None:
+    if readable(caller, reader.document(document_id)) is None:
         raise _not_found(document_id)
     with _push_lock:
         try:

@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
-from fastapi import APIRouter, HTTPException, Request
+from fastapi import APIRouter, HTTPException
 
 from ..auth import ReadCaller
-from ..deps import SearcherDep
+from ..deps import JudgmentsDep, ReaderDep
 from ..filters import readable
 from ..schemas import ErrorResponse, FeedbackRequest, FeedbackResponse
 
@@ -19,18 +19,15 @@ router = APIRouter(tags=["feedback"])
     responses={404: {"model": ErrorResponse}, 422: {"model": ErrorResponse}},
 )
 def feedback(
-    body: FeedbackRequest, searcher: SearcherDep, request: Request, caller: ReadCaller
+    body: FeedbackRequest, reader: ReaderDep, judgments: JudgmentsDep, caller: ReadCaller
 ) -> FeedbackResponse:
     """Store (query, document or passage, grade 0–3, user); export with `sounding judgments`."""
     if body.document_id is None and body.chunk_id is None:
         raise HTTPException(422, "name the judged result: document_id or chunk_id")
     document_id = body.document_id
     if body.chunk_id is not None:
-        chunk = searcher.reader.chunks([body.chunk_id]).get(body.chunk_id)
-        if (
-            chunk is not None
-            and readable(caller, searcher.reader.document(chunk.document_id)) is None
-        ):
+        chunk = reader.chunks([body.chunk_id]).get(body.chunk_id)
+        if chunk is not None and readable(caller, reader.document(chunk.document_id)) is None:
             chunk = None  # a passage the caller may not read is as good as absent
         if chunk is None:
             raise HTTPException(404, f"no chunk with id {body.chunk_id} in the index")
@@ -40,11 +37,9 @@ def feedback(
             )
         document_id = chunk.document_id
     assert document_id is not None
-    if readable(caller, searcher.reader.document(document_id)) is None:
+    if readable(caller, reader.document(document_id)) is None:
         raise HTTPException(404, f"no document with id {document_id!r} in the index")
     # The judge is the key's name unless the body names a person (a bot judging for one).
     user = body.user or (None if caller.anonymous else caller.name)
-    j = request.app.state.judgments.record(
-        body.query, document_id, body.grade, chunk_id=body.chunk_id, user=user
-    )
+    j = judgments.record(body.query, document_id, body.grade, chunk_id=body.chunk_id, user=user)
     return FeedbackResponse(id=j.id, query_id=j.query_id, document_id=j.document_id, grade=j.grade)

@@ -3,9 +3,10 @@ Prometheus (text exposition format 0.0.4)."""
 
 from __future__ import annotations
 
-from fastapi import APIRouter, Request, Response
+from fastapi import APIRouter, Response
 
-from ..metrics import CONTENT_TYPE, ServiceMetrics
+from ..deps import MaybeGenerationDep, MetricsDep
+from ..metrics import CONTENT_TYPE
 
 # A read key is required: create_app includes this router with the dependency.
 router = APIRouter(tags=["operations"])
@@ -21,9 +22,7 @@ router = APIRouter(tags=["operations"])
         }
     },
 )
-def metrics(request: Request) -> Response:
+def metrics(service_metrics: MetricsDep, generation: MaybeGenerationDep) -> Response:
     """Request counts and latency histograms per route and mode, index size, last re-index."""
-    service_metrics: ServiceMetrics = request.app.state.metrics
-    engine = getattr(request.app.state, "engine", None)
-    searcher = engine.current() if engine is not None else None
-    return Response(service_metrics.render(searcher), media_type=CONTENT_TYPE)
+    reader = generation.reader if generation is not None else None
+    return Response(service_metrics.render(reader), media_type=CONTENT_TYPE)

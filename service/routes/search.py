@@ -5,13 +5,12 @@ from __future__ import annotations
 import logging
 import time
 
-from fastapi import APIRouter, HTTPException, Request, Response
-from sounding.indexer.errors import QueryError
+from fastapi import APIRouter, Request, Response
 from sounding.indexer.search import Timings
 
 from ..auth import ReadCaller
-from ..deps import SearcherDep, SettingsDep
-from ..filters import check_query_length, search_filter
+from ..deps import GenerationDep, SettingsDep
+from ..filters import search_filter
 from ..metrics import record_mode
 from ..schemas import ErrorResponse, Passage, SearchRequest, SearchResponse
 
@@ -40,7 +39,7 @@ router = APIRouter(tags=["search"])
 def search(
     body: SearchRequest,
     request: Request,
-    searcher: SearcherDep,
+    generation: GenerationDep,
     settings: SettingsDep,
     caller: ReadCaller,
 ) -> Response:
@@ -51,45 +50,27 @@ def search(
     """
     record_mode(request, body.mode)
     started = time.perf_counter()
-    check_query_length(body.query, settings.max_query_chars)
-    if body.k > settings.max_k:
-        raise HTTPException(
-            422, f"k={body.k} is over the limit of {settings.max_k} (setting max_k)"
-        )
+    # A QueryError here is the app's 422, with its reason.
+    searcher = generation.searcher
+    query = searcher.query(
+        body.query,
+        body.k,
+        mode=body.mode,
+        max_per_document=body.max_per_document,
+        rerank=body.rerank,
+        where=search_filter(caller, body),
+        max_k=settings.max_k,
+        max_query_chars=settings.max_query_chars,
+    )
     timings = Timings()
-    try:
-        hits = searcher.search(
-            body.query,
-            body.k,
-            mode=body.mode,
-            max_per_document=body.max_per_document,
-            rerank=body.rerank,
-            where=search_filter(caller, body),
-            timings=timings,
-        )
-    except QueryError as exc:
-        raise HTTPException(422, str(exc)) from exc
+    hits = searcher.run(query, timings)
     with timings.stage("serialise"):
         payload = SearchResponse(
             query=body.query,
             k=body.k,
             mode=body.mode,
-            generation=searcher.reader.generation,
+            generation=generation.number,
             took_ms=round((time.perf_counter() - started) * 1000, 3),
-            results=[
-                Passage(
-                    rank=h.rank,
-                    score=h.score,
-                    chunk_id=h.chunk_id,
-                    document_id=h.document_id,
-                    collection=h.collection,
-                    title=h.title,
-                    source=h.source,
-                    trail=list(h.trail),
-                    text=h.text,
-                    page=h.page,
-                )
-                for h in hits
-            ],
+            results=[Passage.model_validate(h, from_attributes=True) for h in hits],
         ).model_dump_json()
     return timed_json(payload, timings)
