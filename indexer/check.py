@@ -11,23 +11,17 @@ chunk rows, removes leftovers and documents without chunks (the next
 
 from __future__ import annotations
 
-import sqlite3
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import faiss
 import numpy as np
 
 from .chunking import ChunkSettings
 from .lock import IndexLock
 from .settings import IndexSettings
-from .store import DATABASE, IndexWriter, Manifest, vectors_filename
+from .store import DATABASE, IndexWriter, Manifest, inspect_database, vectors_filename
+from .vectorfile import read_vector_file
 from .vectors import VectorChoice, describe_vectors, index_ids
-
-# Documents left without chunks: the index would call them unchanged forever.
-_WITHOUT_CHUNKS = (
-    "FROM documents d WHERE NOT EXISTS (SELECT 1 FROM chunks c WHERE c.document_id = d.id)"
-)
 
 
 @dataclass
@@ -52,30 +46,19 @@ def check_index(index_dir: Path) -> CheckReport:
     if not db_path.is_file():
         report.problems.append(f"{DATABASE} is missing")
         return report
-    conn = sqlite3.connect(f"{db_path.resolve().as_uri()}?mode=ro", uri=True)
-    try:
-        integrity = conn.execute("PRAGMA integrity_check").fetchone()[0]
-        if integrity != "ok":
-            report.problems.append(f"SQLite integrity check: {integrity}")
-        chunk_ids = np.fromiter((r[0] for r in conn.execute("SELECT id FROM chunks")), np.int64)
-        dim = int(manifest.model["dimension"])
-        bad_vectors = conn.execute(
-            "SELECT count(*) FROM chunks WHERE length(vector) != ?", [4 * dim]
-        ).fetchone()[0]
-        if bad_vectors:
-            report.problems.append(f"{bad_vectors} chunk rows hold a vector of the wrong size")
-        fts_ids = np.fromiter(
-            (r[0] for r in conn.execute("SELECT rowid FROM chunks_fts")), np.int64
+    dim = int(manifest.model["dimension"])
+    db = inspect_database(db_path, dim)
+    if db.integrity != "ok":
+        report.problems.append(f"SQLite integrity check: {db.integrity}")
+    chunk_ids, docs = db.chunk_ids, db.documents
+    if db.wrong_size_vectors:
+        report.problems.append(
+            f"{db.wrong_size_vectors} chunk rows hold a vector of the wrong size"
         )
-        _compare(report, "lexical (FTS5) index", chunk_ids, fts_ids)
-        empty = conn.execute(f"SELECT count(*) {_WITHOUT_CHUNKS}").fetchone()[0]
-        if empty:
-            report.problems.append(f"{empty} documents have no chunks")
-        docs = conn.execute("SELECT count(*) FROM documents").fetchone()[0]
-        row = conn.execute("SELECT value FROM state WHERE key = 'generation'").fetchone()
-    finally:
-        conn.close()
-    generation = int(row[0]) if row else manifest.generation
+    _compare(report, "lexical (FTS5) index", chunk_ids, db.lexical_ids)
+    if db.documents_without_chunks:
+        report.problems.append(f"{db.documents_without_chunks} documents have no chunks")
+    generation = db.generation if db.generation is not None else manifest.generation
     if generation > manifest.generation:
         report.notes.append(
             f"generation {generation} is committed but the manifest still names "
@@ -87,9 +70,8 @@ def check_index(index_dir: Path) -> CheckReport:
             f"the manifest names generation {manifest.generation}, the database holds {generation}"
         )
     vectors = index_dir / vectors_filename(generation)
-    try:
-        index = faiss.read_index(str(vectors))
-    except RuntimeError:
+    index = read_vector_file(vectors)
+    if index is None:
         report.problems.append(
             f"vector file {vectors.name} of generation {generation} is missing or unreadable"
         )
@@ -154,9 +136,8 @@ def repair_index(index_dir: Path, vectors: VectorChoice | None = None) -> CheckR
         IndexLock(index_dir),
         IndexWriter(index_dir, manifest.model, chunking, vectors=vectors) as writer,
     ):
-        conn = writer.conn
         done: list[str] = []
-        empty = [r[0] for r in conn.execute(f"SELECT id {_WITHOUT_CHUNKS}")]
+        empty = writer.documents_without_chunks()
         if empty:
             writer.remove(empty)
             done.append(

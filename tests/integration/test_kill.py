@@ -113,7 +113,9 @@ def test_sigkill_at_random_moments_never_breaks_the_index(tmp_path: Path, tiny_m
         docs, chunks = reader.counts()
         if docs != DOCS or chunks != reader.vectors.ntotal:
             failures.append(f"trial {trial}: {docs} documents, {chunks} chunks")
-        revisions = {t.split()[0] for _, t in reader._rows("SELECT id, text FROM chunks")}
+        revisions = {
+            c.text.split()[0] for c in reader.chunks(list(reader.chunk_documents())).values()
+        }
         if len(revisions) != 1:  # one generation, not a mix of two corpus revisions
             failures.append(f"trial {trial}: chunks of revisions {sorted(revisions)}")
         hits = Searcher(reader, embedder).search("w1 w2 w3", 5, mode="hybrid")
@@ -133,7 +135,7 @@ def test_sigkill_at_random_moments_never_breaks_the_index(tmp_path: Path, tiny_m
     assert final.returncode == 0, final.stderr
     reader = IndexReader(idx)
     assert set(reader.chunk_documents().values()) == ids
-    assert {t.split()[0] for _, t in reader._rows("SELECT id, text FROM chunks")} == {
+    assert {c.text.split()[0] for c in reader.chunks(list(reader.chunk_documents())).values()} == {
         f"rev{TRIALS}"
     }
     assert subprocess.run(cli("check"), env=env, capture_output=True).returncode == 0

@@ -263,14 +263,11 @@ def test_dense_filter_equals_brute_force_over_the_admitted_chunks(wiki) -> None:
     assert allowed is not None and len(allowed)
     q = embedder.encode(["pump leave"])
     D, I = reader.search(q, 3, selector=reader.selector(where))
-    ids, matrix = [], []
-    for cid in allowed:
-        ids.append(cid)
-    with reader._connection() as conn:
-        for cid in ids:
-            blob = conn.execute("SELECT vector FROM chunks WHERE id = ?", [int(cid)]).fetchone()[0]
-            matrix.append(np.frombuffer(blob, dtype=np.float32))
-    scores = np.stack(matrix) @ q[0]
+    ids, matrix = reader.chunk_vectors(allowed.tolist())
+    assert sorted(ids.tolist()) == allowed.tolist()
+    order_by_id = np.argsort(ids, kind="stable")  # the admitted ids' order, as before
+    ids, matrix = ids[order_by_id].tolist(), matrix[order_by_id]
+    scores = matrix @ q[0]
     order = np.argsort(-scores, kind="stable")[:3]
     assert list(I[0][: len(order)]) == [ids[i] for i in order]
     np.testing.assert_allclose(D[0][: len(order)], scores[order], rtol=1e-5)
@@ -374,14 +371,14 @@ def test_unusable_pushed_bytes(kind: str, data: str) -> None:
 
 
 def test_filter_cache_is_bounded_by_ids_held(wiki, monkeypatch: pytest.MonkeyPatch) -> None:
-    import sounding.indexer.store as store
+    import sounding.indexer.store.reader as store_reader
 
     _, settings, _ = wiki
-    monkeypatch.setattr(store, "_FILTER_CACHE_IDS", 3)
+    monkeypatch.setattr(store_reader, "FILTER_CACHE_IDS", 3)
     reader = IndexReader(settings.index_dir)
     for t in range(10):  # filters with a time in them: each one different
         assert reader.allowed_chunks(SearchFilter(modified_after=float(t))) is not None
-    held = [len(ids) for ids, _ in reader._allowed.values()]
+    held = reader.cached_filter_sizes()
     assert len(held) == 1 or sum(held) <= 3
     # An evicted filter is simply computed again, with the same answer.
     again = reader.allowed_chunks(SearchFilter(modified_after=0.0))

@@ -1,0 +1,367 @@
+"""The reader that serves one index generation, and the records it returns."""
+
+from __future__ import annotations
+
+import json
+import sqlite3
+import threading
+from collections.abc import Iterable, Iterator, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass
+from functools import cached_property
+from pathlib import Path
+from typing import Any
+
+import faiss
+import numpy as np
+
+from ..errors import IndexCorruptError
+from ..selection import SearchFilter
+from ..vectorfile import load_or_rebuild
+from ..vectors import search_vectors
+from .format import DATABASE, Manifest, check_model, vectors_filename
+from .sqlite import connect, in_batches, load_vectors, state_generation
+
+# Filters whose admitted chunk ids a reader keeps (one entry per distinct groups + filter),
+# and the most ids all entries may hold together: a FAISS IDSelectorBatch costs tens of
+# bytes per id, and filters with a time in them can be all different.
+FILTER_CACHE = 64
+FILTER_CACHE_IDS = 2_000_000
+
+
+@dataclass(frozen=True)
+class ChunkRecord:
+    """One stored chunk, as readers get it."""
+
+    id: int
+    document_id: str
+    ordinal: int
+    trail: tuple[str, ...]
+    text: str
+    page: int | None
+    tokens: int
+
+
+@dataclass(frozen=True)
+class DocumentRecord:
+    """One stored document, as readers get it."""
+
+    id: str
+    collection: str
+    title: str
+    source: str
+    kind: str
+    modified: float
+    content_hash: str
+    metadata: dict[str, Any]
+    indexed_at: float
+    groups: tuple[str, ...] = ()
+    tags: tuple[str, ...] = ()
+
+
+def _chunk(row: sqlite3.Row) -> ChunkRecord:
+    return ChunkRecord(
+        id=row["id"],
+        document_id=row["document_id"],
+        ordinal=row["ordinal"],
+        trail=tuple(json.loads(row["trail"])),
+        text=row["text"],
+        page=row["page"],
+        tokens=row["tokens"],
+    )
+
+
+def _document(row: sqlite3.Row) -> DocumentRecord:
+    return DocumentRecord(
+        id=row["id"],
+        collection=row["collection"],
+        title=row["title"],
+        source=row["source"],
+        kind=row["kind"],
+        modified=row["modified"],
+        content_hash=row["content_hash"],
+        metadata=json.loads(row["metadata"]),
+        indexed_at=row["indexed_at"],
+        groups=tuple(json.loads(row["groups"])),
+        tags=tuple(json.loads(row["tags"])),
+    )
+
+
+_CHUNK_COLUMNS = "id, document_id, ordinal, trail, text, page, tokens"
+
+
+class IndexReader:
+    """Read-only view of one index generation: vectors in memory, rows from SQLite.
+
+    Safe to share between threads: FAISS searches are read-only; SQLite is
+    read through per-thread connections, or, when ``pinned``, through one
+    connection holding a read transaction opened when the reader was made.
+    SQLite's WAL mode then shows that connection the database exactly as it
+    was, whatever a re-index commits meanwhile, so a long-lived reader (the
+    service's) answers every request from one complete generation. (A run
+    commits once, when it publishes, so every snapshot is a whole generation.)
+    """
+
+    def __init__(
+        self, index_dir: Path, model: dict[str, Any] | None = None, *, pinned: bool = False
+    ) -> None:
+        self.index_dir = Path(index_dir)
+        self.manifest = Manifest.read(self.index_dir)
+        if model is not None:
+            check_model(self.manifest, model, self.index_dir)
+        self.dimension = int(self.manifest.model["dimension"])
+        self._db_path = self.index_dir / DATABASE
+        if not self._db_path.is_file():
+            raise IndexCorruptError(
+                f"index at {self.index_dir} has a manifest but no {DATABASE}; "
+                "rebuild it with `sounding index --rebuild`"
+            )
+        self._local = threading.local()
+        self._allowed: dict[tuple[Any, ...], tuple[np.ndarray, faiss.IDSelector]] = {}
+        self._counts: dict[tuple[Any, ...], tuple[int, int]] = {}
+        self._cache_lock = threading.Lock()
+        self._pinned: sqlite3.Connection | None = None
+        self._pin_lock = threading.Lock()
+        if pinned:
+            conn = connect(self._db_path, readonly=True)
+            conn.isolation_level = None
+            conn.execute("BEGIN")
+            self._pinned = conn
+        # SQLite's commit makes a generation exist; the manifest may lag behind it
+        # by a crash between the two, so the generation comes from the database.
+        with self._connection() as conn:
+            committed = state_generation(conn)
+        self._generation = committed if committed is not None else self.manifest.generation
+        vectors = self.index_dir / vectors_filename(self._generation)
+        # A missing or unreadable vector file is derived data: rebuilt in memory, of the
+        # kind (and nprobe) the manifest records.
+        self.vectors: faiss.Index = load_or_rebuild(
+            vectors, self.manifest.vectors, self.dimension, self.chunk_vectors
+        )
+        if self.vectors.d != self.dimension:
+            raise IndexCorruptError(
+                f"{vectors} has {self.vectors.d} dimensions, the manifest says {self.dimension}; "
+                "rebuild the index with `sounding index --rebuild`"
+            )
+
+    @contextmanager
+    def _connection(self) -> Iterator[sqlite3.Connection]:
+        """The connection to read with, held exclusively for the block when pinned."""
+        if self._pinned is not None:
+            with self._pin_lock:
+                yield self._pinned
+            return
+        conn = getattr(self._local, "conn", None)
+        if conn is None:
+            conn = connect(self._db_path, readonly=True)
+            self._local.conn = conn
+        yield conn
+
+    def _rows(self, sql: str, params: Sequence[object] = ()) -> list[sqlite3.Row]:
+        with self._connection() as conn:
+            return conn.execute(sql, list(params)).fetchall()
+
+    def chunk_vectors(self, ids: Sequence[int] | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Stored vectors: chunk ids and an (n, d) float32 matrix, all (by id) or only ``ids``
+        (in no particular order; ids no longer stored are left out)."""
+        with self._connection() as conn:
+            return load_vectors(conn, self.dimension, ids)
+
+    def cached_filter_sizes(self) -> list[int]:
+        """How many chunk ids each cached filter holds, least recently used first."""
+        with self._cache_lock:
+            return [len(ids) for ids, _ in self._allowed.values()]
+
+    def chunk_documents(self) -> dict[int, str]:
+        """Chunk id -> document id for every chunk."""
+        return {int(r[0]): r[1] for r in self._rows("SELECT id, document_id FROM chunks")}
+
+    @property
+    def generation(self) -> int:
+        """The generation this reader sees."""
+        return self._generation
+
+    def counts(self) -> tuple[int, int]:
+        """(documents, chunks) in this generation."""
+        docs = self._rows("SELECT count(*) FROM documents")[0][0]
+        return int(docs), int(self.vectors.ntotal)
+
+    def search(
+        self,
+        queries: np.ndarray,
+        k: int,
+        *,
+        selector: faiss.IDSelector | None = None,
+        allowed: int | None = None,
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """FAISS search: ``D`` scores and ``I`` chunk ids, shape (m, k); -1 pads.
+
+        With ``selector`` only the chunk ids it selects are ranked; ``allowed``,
+        how many that is, lets an IVF index probe more cells for a narrow one.
+        """
+        queries = np.ascontiguousarray(queries, dtype=np.float32)
+        if queries.ndim != 2 or queries.shape[1] != self.dimension:
+            raise ValueError(f"queries must have shape (m, {self.dimension})")
+        k = max(1, min(k, int(self.vectors.ntotal) or 1))
+        return search_vectors(self.vectors, queries, k, selector=selector, allowed=allowed)
+
+    def lexical(
+        self, match: str, k: int, where: SearchFilter | None = None
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """BM25 search of the chunks: scores (higher is better) and chunk ids, best first.
+
+        ``match`` must be a safe FTS5 expression (see :mod:`indexer.lexical`).
+        With ``where``, only chunks of documents it admits are ranked (the
+        condition is part of the query, so the top ``k`` are all admitted).
+        """
+        # Only whether the filter restricts anything: the admitted ids are not needed here.
+        if where is None or not self._restricts(where):
+            rows = self._rows(
+                "SELECT rowid, bm25(chunks_fts) FROM chunks_fts WHERE chunks_fts MATCH ? "
+                "ORDER BY bm25(chunks_fts) LIMIT ?",
+                [match, int(k)],
+            )
+        else:
+            cond, params = where.sql()
+            rows = self._rows(
+                "SELECT f.rowid, bm25(chunks_fts) FROM chunks_fts f "
+                "JOIN chunks c ON c.id = f.rowid JOIN documents d ON d.id = c.document_id "
+                f"WHERE chunks_fts MATCH ? AND {cond} ORDER BY bm25(chunks_fts) LIMIT ?",
+                [match, *params, int(k)],
+            )
+        # FTS5's bm25() is negative, more negative is better; flip it for callers.
+        scores = np.fromiter((-r[1] for r in rows), dtype=np.float32, count=len(rows))
+        ids = np.fromiter((r[0] for r in rows), dtype=np.int64, count=len(rows))
+        return scores, ids
+
+    @cached_property
+    def restricted(self) -> bool:
+        """Whether any document of this generation is readable by some groups only."""
+        return bool(self._rows("SELECT 1 FROM documents WHERE groups != '[]' LIMIT 1"))
+
+    def _restricts(self, where: SearchFilter) -> bool:
+        """Whether ``where`` leaves out any chunk of this generation (it may not, when it only
+        names the caller's groups and no document is restricted)."""
+        return where.narrows or (where.groups is not None and self.restricted)
+
+    def admitted(self, where: SearchFilter | None) -> tuple[np.ndarray, faiss.IDSelector] | None:
+        """Sorted chunk ids ``where`` admits and a FAISS selector of them; None for all.
+
+        Cached per filter for the life of this reader (one generation).
+        """
+        if where is None or not self._restricts(where):
+            return None
+        key = where.key
+        with self._cache_lock:
+            entry = self._allowed.pop(key, None)
+            if entry is not None:
+                self._allowed[key] = entry  # most recently used last
+                return entry
+        cond, params = where.sql()
+        rows = self._rows(
+            f"SELECT c.id FROM chunks c JOIN documents d ON d.id = c.document_id WHERE {cond} "
+            "ORDER BY c.id",
+            params,
+        )
+        ids = np.ascontiguousarray(
+            np.fromiter((r[0] for r in rows), dtype=np.int64, count=len(rows))
+        )
+        # FAISS copies the ids into the selector.
+        entry = (ids, faiss.IDSelectorBatch(len(ids), faiss.swig_ptr(ids)))
+        with self._cache_lock:
+            self._allowed[key] = entry
+            held = sum(len(e[0]) for e in self._allowed.values())
+            while len(self._allowed) > 1 and (
+                len(self._allowed) > FILTER_CACHE or held > FILTER_CACHE_IDS
+            ):
+                held -= len(self._allowed.pop(next(iter(self._allowed)))[0])
+        return entry
+
+    def allowed_chunks(self, where: SearchFilter | None) -> np.ndarray | None:
+        """Sorted ids of the chunks ``where`` admits; None when it admits every chunk."""
+        entry = self.admitted(where)
+        return None if entry is None else entry[0]
+
+    def selector(self, where: SearchFilter | None) -> faiss.IDSelector | None:
+        """A FAISS id selector of the chunks ``where`` admits; None when all are."""
+        entry = self.admitted(where)
+        return None if entry is None else entry[1]
+
+    def visible_counts(self, where: SearchFilter) -> tuple[int, int]:
+        """(documents, chunks) that ``where`` admits; cached for this generation (the
+        unauthenticated /health asks on every probe)."""
+        with self._cache_lock:
+            cached = self._counts.get(where.key)
+        if cached is not None:
+            return cached
+        cond, params = where.sql()
+        docs = self._rows(f"SELECT count(*) FROM documents d WHERE {cond}", params)[0][0]
+        chunks = self._rows(
+            f"SELECT count(*) FROM chunks c JOIN documents d ON d.id = c.document_id WHERE {cond}",
+            params,
+        )[0][0]
+        counts = (int(docs), int(chunks))
+        with self._cache_lock:
+            if len(self._counts) >= FILTER_CACHE:
+                self._counts.pop(next(iter(self._counts)))
+            self._counts[where.key] = counts
+        return counts
+
+    def collections(self, where: SearchFilter) -> list[tuple[str, int]]:
+        """(collection, documents) pairs of the documents ``where`` admits, by name."""
+        cond, params = where.sql()
+        rows = self._rows(
+            f"SELECT d.collection, count(*) FROM documents d WHERE {cond} "
+            "GROUP BY d.collection ORDER BY d.collection",
+            params,
+        )
+        return [(r[0], int(r[1])) for r in rows]
+
+    def chunks(self, ids: Sequence[int]) -> dict[int, ChunkRecord]:
+        """Chunk records by id; ids no longer stored are left out."""
+        out: dict[int, ChunkRecord] = {}
+        ids = [int(i) for i in ids if i >= 0]
+        for part, marks in in_batches(ids):
+            for row in self._rows(
+                f"SELECT {_CHUNK_COLUMNS} FROM chunks WHERE id IN ({marks})", part
+            ):
+                out[row["id"]] = _chunk(row)
+        return out
+
+    def documents(self, ids: Iterable[str]) -> dict[str, DocumentRecord]:
+        """Document records by id; unknown ids are left out."""
+        out: dict[str, DocumentRecord] = {}
+        ids = list(dict.fromkeys(ids))
+        for part, marks in in_batches(ids):
+            for row in self._rows(f"SELECT * FROM documents WHERE id IN ({marks})", part):
+                out[row["id"]] = _document(row)
+        return out
+
+    def document(self, document_id: str) -> DocumentRecord | None:
+        """One document's record; None when it is not stored."""
+        return self.documents([document_id]).get(document_id)
+
+    def document_chunks(self, document_id: str) -> list[ChunkRecord]:
+        """A document's chunks in order; empty when it is not stored."""
+        rows = self._rows(
+            f"SELECT {_CHUNK_COLUMNS} FROM chunks WHERE document_id = ? ORDER BY ordinal",
+            [document_id],
+        )
+        return [_chunk(r) for r in rows]
+
+    def close(self) -> None:
+        """Close this thread's connection, and the pinned one (ending its snapshot)."""
+        conn = getattr(self._local, "conn", None)
+        if conn is not None:
+            conn.close()
+            self._local.conn = None
+        if self._pinned is not None:
+            with self._pin_lock:
+                self._pinned.close()
+                self._pinned = None
+
+    def __del__(self) -> None:
+        # A pinned snapshot holds back WAL checkpoints: end it with the reader.
+        pinned = getattr(self, "_pinned", None)
+        if pinned is not None:
+            pinned.close()
