@@ -7,7 +7,6 @@ import json
 import sqlite3
 import stat
 import subprocess
-import sys
 import threading
 from pathlib import Path
 
@@ -331,17 +330,16 @@ def test_cli_list_without_a_keys_file_says_how_to_make_one(tmp_path: Path, capsy
 
 
 def run_cli(*args: str, env: dict[str, str] | None = None) -> subprocess.CompletedProcess:
+    """The command in-process (click's CliRunner), no SOUNDING_* setting but ``env``."""
     import os
 
-    full_env = {k: v for k, v in os.environ.items() if not k.startswith("SOUNDING_")}
-    full_env.update(env or {})
-    return subprocess.run(
-        [sys.executable, "-m", "sounding.cli", *args],
-        capture_output=True,
-        text=True,
-        env=full_env,
-        timeout=120,
-    )
+    from click.testing import CliRunner
+
+    from sounding.cli import cli
+
+    unset: dict[str, str | None] = {k: None for k in os.environ if k.startswith("SOUNDING_")}
+    result = CliRunner(env={**unset, **(env or {})}).invoke(cli, list(args))
+    return subprocess.CompletedProcess(list(args), result.exit_code, result.stdout, result.stderr)
 
 
 @pytest.mark.parametrize(

@@ -9,12 +9,15 @@ import sys
 from pathlib import Path
 
 import pytest
+from click.testing import CliRunner
 from sounding.indexer.build import refresh_index
 from sounding.indexer.embedding import HashingEmbedder
 from sounding.indexer.errors import IndexLockedError
 from sounding.indexer.lock import LOCK_FILE, IndexLock
 from sounding.indexer.settings import IndexSettings
 from sounding.indexer.store import IndexReader
+
+from sounding.cli import cli
 
 HOLD = """
 import sys, time
@@ -80,15 +83,9 @@ def test_cli_exits_75_with_one_line_when_locked(tmp_path: Path, wiki: Path) -> N
     )
     try:
         assert holder.stdout.readline().strip() == "held"
-        env = {k: v for k, v in os.environ.items() if not k.startswith("SOUNDING_")}
-        proc = subprocess.run(
-            [sys.executable, "-m", "sounding.cli", "index", str(wiki), "--index", str(idx)],
-            capture_output=True,
-            text=True,
-            env=env,
-            timeout=120,
-        )
-        assert proc.returncode == 75
+        unset: dict[str, str | None] = {k: None for k in os.environ if k.startswith("SOUNDING_")}
+        proc = CliRunner(env=unset).invoke(cli, ["index", str(wiki), "--index", str(idx)])
+        assert proc.exit_code == 75
         lines = proc.stderr.strip().splitlines()
         assert len(lines) == 1 and "being updated by another" in lines[0]
     finally:
