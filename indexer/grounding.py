@@ -32,6 +32,8 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 from typing import Protocol
 
+from .chunking import Tokenizer
+
 Counter = Callable[[str], int]
 
 SEPARATOR = "\n\n"
@@ -63,7 +65,7 @@ class RankedChunk(Protocol):
     def score(self) -> float: ...
 
 
-def token_counter(tokenizer) -> Counter:  # tokenizer: indexer.chunking.Tokenizer
+def token_counter(tokenizer: Tokenizer) -> Counter:
     """Count word pieces of ``tokenizer`` (special tokens not included)."""
     return lambda text: len(tokenizer.spans(text))
 

@@ -118,7 +118,7 @@ def in_step(
     have = index_ids(index)
     stale = np.setdiff1d(have, want, assume_unique=True)
     if len(stale):
-        index.remove_ids(stale)
+        index.remove_ids(stale)  # type: ignore[arg-type]  # faiss wraps numpy ids at run time
     missing = np.setdiff1d(want, have, assume_unique=True)
     if len(missing):
         ids, matrix = source(missing.tolist())

@@ -31,7 +31,7 @@ from __future__ import annotations
 import logging
 import math
 from dataclasses import dataclass, field
-from typing import Any, Literal
+from typing import Any, Literal, cast
 
 import faiss
 import numpy as np
@@ -39,6 +39,9 @@ import numpy as np
 from .errors import SettingsError
 
 log = logging.getLogger(__name__)
+# faiss's bundled type hints are generated from its C++ headers: they lack the keyword
+# constructors of its search parameters (SearchParameters(sel=…)), which exist at run time.
+_FAISS: Any = faiss
 
 EXACT = "exact"
 IVF = "ivf"
@@ -149,17 +152,19 @@ def build_vectors(
     d = matrix.shape[1]
     if plan.kind == EXACT:
         # Inner product on L2-normalised vectors is cosine similarity.
-        index = faiss.IndexIDMap2(faiss.IndexFlatIP(d))
+        exact = faiss.IndexIDMap2(faiss.IndexFlatIP(d))
         if len(ids):
-            index.add_with_ids(matrix, ids)
-        return index
+            exact.add_with_ids(matrix, ids)
+        return exact
     if plan.kind != IVF:
         raise ValueError(f"unknown vector plan kind {plan.kind!r}")
     if not len(ids):
         raise ValueError("an IVF index needs vectors to train on")
     nlist = int(plan.params["nlist"])
     quantizer = plan.params.get("quantizer", "SQ8")
-    index = faiss.index_factory(d, f"IVF{nlist},{quantizer}", faiss.METRIC_INNER_PRODUCT)
+    # Typed loosely: faiss's generated hints miss what its Python wrappers add (cp, nprobe
+    # on the factory's IVF, numpy forms of train/add, keyword search parameters).
+    index: Any = faiss.index_factory(d, f"IVF{nlist},{quantizer}", faiss.METRIC_INNER_PRODUCT)
     index.cp.niter = KMEANS_ITERATIONS
     rng = np.random.default_rng(seed)
     size = min(len(ids), TRAIN_PER_LIST * nlist)
@@ -177,7 +182,7 @@ def build_vectors(
             recall,
         )
     index.nprobe = int(min(nprobe, nlist))
-    return index
+    return cast(faiss.Index, index)
 
 
 def calibrate_nprobe(
@@ -212,7 +217,7 @@ def calibrate_nprobe(
     sorted_ids = ids[order]
 
     def recall(nprobe: int) -> float:
-        _, found = index.search(q, kk + 1, params=faiss.SearchParametersIVF(nprobe=nprobe))
+        _, found = index.search(q, kk + 1, params=_FAISS.SearchParametersIVF(nprobe=nprobe))
         hits = 0
         for j in range(len(rows)):
             got = found[j][(found[j] >= 0) & (found[j] != ids[rows[j]])][:kk]
@@ -277,8 +282,9 @@ def index_ids(index: faiss.Index) -> np.ndarray:
     """Every id the index holds (int64; order unspecified)."""
     ivf = _ivf(index)
     if ivf is None:
-        return faiss.vector_to_array(index.id_map).astype(np.int64)
-    lists = ivf.invlists
+        mapped: Any = index  # an IndexIDMap2 (exact plan)
+        return faiss.vector_to_array(mapped.id_map).astype(np.int64)
+    lists: Any = ivf.invlists
     parts = []
     for cell in range(ivf.nlist):
         size = lists.list_size(cell)
@@ -311,7 +317,7 @@ def search_vectors(
     queries = np.ascontiguousarray(queries, dtype=np.float32)
     ivf = _ivf(index)
     if ivf is None:
-        params = None if selector is None else faiss.SearchParameters(sel=selector)
+        params = None if selector is None else _FAISS.SearchParameters(sel=selector)
         return index.search(queries, k, params=params)
     probe = int(nprobe or ivf.nprobe)
     if selector is not None and allowed is not None:
@@ -327,9 +333,12 @@ def search_vectors(
 
 
 def _ivf_params(nprobe: int, selector: faiss.IDSelector | None) -> faiss.SearchParametersIVF:
-    if selector is None:
-        return faiss.SearchParametersIVF(nprobe=nprobe)
-    return faiss.SearchParametersIVF(nprobe=nprobe, sel=selector)
+    params: faiss.SearchParametersIVF = (
+        _FAISS.SearchParametersIVF(nprobe=nprobe)
+        if selector is None
+        else _FAISS.SearchParametersIVF(nprobe=nprobe, sel=selector)
+    )
+    return params
 
 
 def _ivf(index: faiss.Index) -> faiss.IndexIVF | None:
