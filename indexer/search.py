@@ -10,7 +10,7 @@ from __future__ import annotations
 import time
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 from functools import cached_property
 
 from .embedding import Embedder, describe
@@ -20,7 +20,7 @@ from .query import MODES, Mode, Query, check_mode, make_query
 from .rerank import Reranker
 from .rerank import rerank as _rerank
 from .selection import SearchFilter
-from .store import IndexReader, check_model
+from .store import HitRow, IndexReader, check_model
 
 __all__ = [
     "MODES",
@@ -39,22 +39,27 @@ _FUSION_DEPTH = 100
 
 
 @dataclass(frozen=True)
-class Hit:
-    """One ranked passage. ``score`` is cosine (dense), BM25 (lexical) or RRF (hybrid)."""
-
+class _Ranked:
     rank: int
     score: float
-    chunk_id: int
-    document_id: str
-    collection: str
-    title: str
-    source: str
-    trail: tuple[str, ...]
-    text: str
-    page: int | None
-    ordinal: int = 0  # position in its document; consecutive ordinals are adjacent windows
-    tokens: int = 0  # word pieces of the chunk
-    kind: str = ""  # markdown, html, pdf, text or corpus
+
+
+@dataclass(frozen=True)
+class Hit(HitRow, _Ranked):
+    """One ranked passage: a :class:`HitRow` with its rank and its score (cosine for
+    dense, BM25 for lexical, RRF for hybrid).
+
+    Fields in order rank, score, then the row's (dataclass fields follow the
+    reverse method resolution order), as printed by ``sounding search --json``.
+    """
+
+    @classmethod
+    def of(cls, row: HitRow, rank: int, score: float) -> Hit:
+        """``row`` ranked ``rank`` with ``score``."""
+        return cls(rank, score, *(getattr(row, name) for name in _ROW_FIELDS))
+
+
+_ROW_FIELDS = tuple(f.name for f in fields(HitRow))
 
 
 class Timings:
@@ -117,10 +122,10 @@ class Searcher:
             return [[] for _ in queries]
         ids, selector = admitted if admitted is not None else (None, None)
         with timings.stage("encode"):
-            vectors = self.embedder.encode(list(queries))
+            embedded = self.embedder.encode(list(queries))
         with timings.stage("dense"):
-            D, I = self.reader.search(
-                vectors, depth, selector=selector, allowed=None if ids is None else len(ids)
+            D, I = self.reader.nearest(
+                embedded, depth, selector=selector, allowed=None if ids is None else len(ids)
             )
         return [
             [(int(i), float(s)) for s, i in zip(d, ids, strict=True) if i >= 0]
@@ -138,7 +143,7 @@ class Searcher:
         if match is None:
             return []
         with timings.stage("lexical"):
-            scores, ids = self.reader.lexical(match, depth, where)
+            scores, ids = self.reader.bm25(match, depth, where)
         return list(zip(ids.tolist(), scores.tolist(), strict=True))
 
     def ranked_chunks(
@@ -162,7 +167,7 @@ class Searcher:
         dense = [c for c, _ in self._dense([query], pool, where, timings)[0]]
         lexical = [c for c, _ in self._lexical(query, pool, where, timings)]
         with timings.stage("fusion"):
-            tier = fusion_depth(int(self.reader.vectors.ntotal))
+            tier = fusion_depth(int(self.reader.faiss_index.ntotal))
             return tiered_fusion([dense, lexical], tier, k=self.rrf_k)[:depth]
 
     # -- passages -------------------------------------------------------------
@@ -227,43 +232,23 @@ class Searcher:
         timings = timings or _UNTIMED
         ranked = self.ranked_chunks(query.text, depth, query.mode, where, timings)
         with timings.stage("fetch"):
-            chunks = self.reader.chunks([c for c, _ in ranked])
+            # The filter again, in SQL: a second check behind the filtered rankings.
+            rows = self.reader.hit_rows([c for c, _ in ranked], where)
         if use_reranker:
-            pool = [(c, chunks[c].text) for c, _ in ranked[: self.rerank_depth] if c in chunks]
+            pool = [(c, rows[c].text) for c, _ in ranked[: self.rerank_depth] if c in rows]
             with timings.stage("rerank"):
                 ranked = _rerank(query.text, pool, self.reranker) + ranked[self.rerank_depth :]
-        with timings.stage("fetch"):
-            docs = self.reader.documents(c.document_id for c in chunks.values())
         hits: list[Hit] = []
         per_doc: dict[str, int] = {}
         for cid, score in ranked:
-            chunk = chunks.get(cid)
-            doc = docs.get(chunk.document_id) if chunk else None
-            if chunk is None or doc is None:
+            row = rows.get(cid)
+            if row is None:
                 continue  # removed after this generation's vectors were written
-            if where is not None and not where.admits(doc):
-                continue  # never reached: the rankings are filtered; a second check
             if max_per_document is not None:
-                if per_doc.get(doc.id, 0) >= max_per_document:
+                if per_doc.get(row.document_id, 0) >= max_per_document:
                     continue
-                per_doc[doc.id] = per_doc.get(doc.id, 0) + 1
-            hits.append(
-                Hit(
-                    rank=len(hits) + 1,
-                    score=float(score),
-                    chunk_id=chunk.id,
-                    document_id=doc.id,
-                    collection=doc.collection,
-                    title=doc.title,
-                    source=doc.source,
-                    trail=chunk.trail,
-                    text=chunk.text,
-                    page=chunk.page,
-                    ordinal=chunk.ordinal,
-                    tokens=chunk.tokens,
-                    kind=doc.kind,
-                )
-            )
+                per_doc[row.document_id] = per_doc.get(row.document_id, 0) + 1
+            hits.append(Hit.of(row, len(hits) + 1, float(score)))
             if len(hits) == k:
                 break
         return hits

@@ -109,7 +109,7 @@ class Engine:
 
     def _open(self) -> Generation:
         # A pinned reader sees one committed generation for as long as it is open.
-        reader = IndexReader(self.index_dir, pinned=True)
+        reader = IndexReader(self.index_dir, pinned=True, connections=self.read_connections)
         try:
             return Generation(self.make_searcher(reader))
         except BaseException:

@@ -48,7 +48,7 @@ from .format import (
     write_last_run,
 )
 from .integrity import DatabaseReport, inspect_database
-from .reader import ChunkRecord, DocumentRecord, IndexReader
+from .reader import ChunkRecord, DocumentRecord, HitRow, IndexReader
 from .sqlite import open_side_database
 from .writer import IndexWriter, lexical_body
 
@@ -62,6 +62,7 @@ __all__ = [
     "ChunkRecord",
     "DatabaseReport",
     "DocumentRecord",
+    "HitRow",
     "IndexReader",
     "IndexWriter",
     "Manifest",

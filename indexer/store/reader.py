@@ -1,13 +1,11 @@
-"""The reader that serves one index generation, and the records it returns."""
+"""The reader that serves one index generation (records in :mod:`.records`)."""
 
 from __future__ import annotations
 
-import json
 import sqlite3
 import threading
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass
 from functools import cached_property
 from pathlib import Path
 from typing import Any
@@ -20,7 +18,20 @@ from ..selection import SearchFilter
 from ..vectorfile import load_or_rebuild
 from ..vectors import search_vectors
 from .format import DATABASE, Manifest, check_model, vectors_filename
+from .records import (
+    CHUNK_COLUMNS,
+    HIT_COLUMNS,
+    ChunkRecord,
+    DocumentRecord,
+    HitRow,
+    chunk_record,
+    document_record,
+    hit_row,
+)
+from .snapshot import SnapshotConnections
 from .sqlite import connect, in_batches, load_vectors, state_generation
+
+__all__ = ["ChunkRecord", "DocumentRecord", "HitRow", "IndexReader"]
 
 # Filters whose admitted chunk ids a reader keeps (one entry per distinct groups + filter),
 # and the most ids all entries may hold together: a FAISS IDSelectorBatch costs tens of
@@ -29,81 +40,26 @@ FILTER_CACHE = 64
 FILTER_CACHE_IDS = 2_000_000
 
 
-@dataclass(frozen=True)
-class ChunkRecord:
-    """One stored chunk, as readers get it."""
-
-    id: int
-    document_id: str
-    ordinal: int
-    trail: tuple[str, ...]
-    text: str
-    page: int | None
-    tokens: int
-
-
-@dataclass(frozen=True)
-class DocumentRecord:
-    """One stored document, as readers get it."""
-
-    id: str
-    collection: str
-    title: str
-    source: str
-    kind: str
-    modified: float
-    content_hash: str
-    metadata: dict[str, Any]
-    indexed_at: float
-    groups: tuple[str, ...] = ()
-    tags: tuple[str, ...] = ()
-
-
-def _chunk(row: sqlite3.Row) -> ChunkRecord:
-    return ChunkRecord(
-        id=row["id"],
-        document_id=row["document_id"],
-        ordinal=row["ordinal"],
-        trail=tuple(json.loads(row["trail"])),
-        text=row["text"],
-        page=row["page"],
-        tokens=row["tokens"],
-    )
-
-
-def _document(row: sqlite3.Row) -> DocumentRecord:
-    return DocumentRecord(
-        id=row["id"],
-        collection=row["collection"],
-        title=row["title"],
-        source=row["source"],
-        kind=row["kind"],
-        modified=row["modified"],
-        content_hash=row["content_hash"],
-        metadata=json.loads(row["metadata"]),
-        indexed_at=row["indexed_at"],
-        groups=tuple(json.loads(row["groups"])),
-        tags=tuple(json.loads(row["tags"])),
-    )
-
-
-_CHUNK_COLUMNS = "id, document_id, ordinal, trail, text, page, tokens"
-
-
 class IndexReader:
     """Read-only view of one index generation: vectors in memory, rows from SQLite.
 
     Safe to share between threads: FAISS searches are read-only; SQLite is
-    read through per-thread connections, or, when ``pinned``, through one
-    connection holding a read transaction opened when the reader was made.
-    SQLite's WAL mode then shows that connection the database exactly as it
-    was, whatever a re-index commits meanwhile, so a long-lived reader (the
-    service's) answers every request from one complete generation. (A run
-    commits once, when it publishes, so every snapshot is a whole generation.)
+    read through per-thread connections, or, when ``pinned``, through
+    ``connections`` connections that each hold a read transaction on the one
+    snapshot taken when the reader was made (:mod:`.snapshot`). SQLite's WAL
+    mode then shows them the database exactly as it was, whatever a re-index
+    commits meanwhile, so a long-lived reader (the service's) answers every
+    request from one complete generation, up to ``connections`` requests at once.
+    (A run commits once, when it publishes, so every snapshot is a whole generation.)
     """
 
     def __init__(
-        self, index_dir: Path, model: dict[str, Any] | None = None, *, pinned: bool = False
+        self,
+        index_dir: Path,
+        model: dict[str, Any] | None = None,
+        *,
+        pinned: bool = False,
+        connections: int = 1,
     ) -> None:
         self.index_dir = Path(index_dir)
         self.manifest = Manifest.read(self.index_dir)
@@ -120,13 +76,7 @@ class IndexReader:
         self._allowed: dict[tuple[Any, ...], tuple[np.ndarray, faiss.IDSelector]] = {}
         self._counts: dict[tuple[Any, ...], tuple[int, int]] = {}
         self._cache_lock = threading.Lock()
-        self._pinned: sqlite3.Connection | None = None
-        self._pin_lock = threading.Lock()
-        if pinned:
-            conn = connect(self._db_path, readonly=True)
-            conn.isolation_level = None
-            conn.execute("BEGIN")
-            self._pinned = conn
+        self._pinned = SnapshotConnections(self._db_path, connections) if pinned else None
         # SQLite's commit makes a generation exist; the manifest may lag behind it
         # by a crash between the two, so the generation comes from the database.
         with self._connection() as conn:
@@ -135,21 +85,23 @@ class IndexReader:
         vectors = self.index_dir / vectors_filename(self._generation)
         # A missing or unreadable vector file is derived data: rebuilt in memory, of the
         # kind (and nprobe) the manifest records.
-        self.vectors: faiss.Index = load_or_rebuild(
+        self.faiss_index: faiss.Index = load_or_rebuild(
             vectors, self.manifest.vectors, self.dimension, self.chunk_vectors
         )
-        if self.vectors.d != self.dimension:
+        if self.faiss_index.d != self.dimension:
             raise IndexCorruptError(
-                f"{vectors} has {self.vectors.d} dimensions, the manifest says {self.dimension}; "
+                f"{vectors} has {self.faiss_index.d} dimensions, the manifest says "
+                f"{self.dimension}; "
                 "rebuild the index with `sounding index --rebuild`"
             )
 
     @contextmanager
     def _connection(self) -> Iterator[sqlite3.Connection]:
-        """The connection to read with, held exclusively for the block when pinned."""
+        """The connection to read with: this thread's, or one of the snapshot's (the
+        caller's alone for the block) when pinned."""
         if self._pinned is not None:
-            with self._pin_lock:
-                yield self._pinned
+            with self._pinned.connection() as conn:
+                yield conn
             return
         conn = getattr(self._local, "conn", None)
         if conn is None:
@@ -184,9 +136,9 @@ class IndexReader:
     def counts(self) -> tuple[int, int]:
         """(documents, chunks) in this generation."""
         docs = self._rows("SELECT count(*) FROM documents")[0][0]
-        return int(docs), int(self.vectors.ntotal)
+        return int(docs), int(self.faiss_index.ntotal)
 
-    def search(
+    def nearest(
         self,
         queries: np.ndarray,
         k: int,
@@ -194,7 +146,8 @@ class IndexReader:
         selector: faiss.IDSelector | None = None,
         allowed: int | None = None,
     ) -> tuple[np.ndarray, np.ndarray]:
-        """FAISS search: ``D`` scores and ``I`` chunk ids, shape (m, k); -1 pads.
+        """The ``k`` chunks nearest each query vector (FAISS, inner product): ``D`` scores
+        and ``I`` chunk ids, shape (m, k); -1 pads.
 
         With ``selector`` only the chunk ids it selects are ranked; ``allowed``,
         how many that is, lets an IVF index probe more cells for a narrow one.
@@ -202,13 +155,14 @@ class IndexReader:
         queries = np.ascontiguousarray(queries, dtype=np.float32)
         if queries.ndim != 2 or queries.shape[1] != self.dimension:
             raise ValueError(f"queries must have shape (m, {self.dimension})")
-        k = max(1, min(k, int(self.vectors.ntotal) or 1))
-        return search_vectors(self.vectors, queries, k, selector=selector, allowed=allowed)
+        k = max(1, min(k, int(self.faiss_index.ntotal) or 1))
+        return search_vectors(self.faiss_index, queries, k, selector=selector, allowed=allowed)
 
-    def lexical(
+    def bm25(
         self, match: str, k: int, where: SearchFilter | None = None
     ) -> tuple[np.ndarray, np.ndarray]:
-        """BM25 search of the chunks: scores (higher is better) and chunk ids, best first.
+        """BM25 ranking of the chunks (SQLite FTS5): scores (higher is better) and chunk
+        ids, best first.
 
         ``match`` must be a safe FTS5 expression (see :mod:`indexer.lexical`).
         With ``where``, only chunks of documents it admits are ranked (the
@@ -323,9 +277,9 @@ class IndexReader:
         ids = [int(i) for i in ids if i >= 0]
         for part, marks in in_batches(ids):
             for row in self._rows(
-                f"SELECT {_CHUNK_COLUMNS} FROM chunks WHERE id IN ({marks})", part
+                f"SELECT {CHUNK_COLUMNS} FROM chunks WHERE id IN ({marks})", part
             ):
-                out[row["id"]] = _chunk(row)
+                out[row["id"]] = chunk_record(row)
         return out
 
     def documents(self, ids: Iterable[str]) -> dict[str, DocumentRecord]:
@@ -334,7 +288,26 @@ class IndexReader:
         ids = list(dict.fromkeys(ids))
         for part, marks in in_batches(ids):
             for row in self._rows(f"SELECT * FROM documents WHERE id IN ({marks})", part):
-                out[row["id"]] = _document(row)
+                out[row["id"]] = document_record(row)
+        return out
+
+    def hit_rows(self, ids: Sequence[int], where: SearchFilter | None = None) -> dict[int, HitRow]:
+        """What ranked passages show, by chunk id, from one join of chunks and documents.
+
+        Ids no longer stored are left out, and so are chunks of documents that
+        ``where`` does not admit: the rankings are filtered already; this is
+        the second check, in the same SQL rule.
+        """
+        cond, params = where.sql() if where is not None else ("1", [])
+        out: dict[int, HitRow] = {}
+        for part, marks in in_batches([int(i) for i in ids if i >= 0]):
+            for row in self._rows(
+                f"SELECT {HIT_COLUMNS} FROM chunks c JOIN documents d ON d.id = c.document_id "
+                f"WHERE c.id IN ({marks}) AND {cond}",
+                [*part, *params],
+            ):
+                hit = hit_row(row)
+                out[hit.chunk_id] = hit
         return out
 
     def document(self, document_id: str) -> DocumentRecord | None:
@@ -344,24 +317,23 @@ class IndexReader:
     def document_chunks(self, document_id: str) -> list[ChunkRecord]:
         """A document's chunks in order; empty when it is not stored."""
         rows = self._rows(
-            f"SELECT {_CHUNK_COLUMNS} FROM chunks WHERE document_id = ? ORDER BY ordinal",
+            f"SELECT {CHUNK_COLUMNS} FROM chunks WHERE document_id = ? ORDER BY ordinal",
             [document_id],
         )
-        return [_chunk(r) for r in rows]
+        return [chunk_record(r) for r in rows]
 
     def close(self) -> None:
-        """Close this thread's connection, and the pinned one (ending its snapshot)."""
+        """Close this thread's connection; a pinned reader closes its snapshot for good."""
         conn = getattr(self._local, "conn", None)
         if conn is not None:
             conn.close()
             self._local.conn = None
         if self._pinned is not None:
-            with self._pin_lock:
-                self._pinned.close()
-                self._pinned = None
+            self._pinned.close()
 
     def __del__(self) -> None:
-        # A pinned snapshot holds back WAL checkpoints: end it with the reader.
+        # A snapshot holds back WAL checkpoints; owners close readers explicitly (the
+        # service's generations do), this only catches a reader nobody closed.
         pinned = getattr(self, "_pinned", None)
         if pinned is not None:
             pinned.close()

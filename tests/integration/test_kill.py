@@ -111,7 +111,7 @@ def test_sigkill_at_random_moments_never_breaks_the_index(tmp_path: Path, tiny_m
             continue
         reader = IndexReader(idx)
         docs, chunks = reader.counts()
-        if docs != DOCS or chunks != reader.vectors.ntotal:
+        if docs != DOCS or chunks != reader.faiss_index.ntotal:
             failures.append(f"trial {trial}: {docs} documents, {chunks} chunks")
         revisions = {
             c.text.split()[0] for c in reader.chunks(list(reader.chunk_documents())).values()

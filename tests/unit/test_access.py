@@ -262,7 +262,7 @@ def test_dense_filter_equals_brute_force_over_the_admitted_chunks(wiki) -> None:
     allowed = reader.allowed_chunks(where)
     assert allowed is not None and len(allowed)
     q = embedder.encode(["pump leave"])
-    D, I = reader.search(q, 3, selector=reader.selector(where))
+    D, I = reader.nearest(q, 3, selector=reader.selector(where))
     ids, matrix = reader.chunk_vectors(allowed.tolist())
     assert sorted(ids.tolist()) == allowed.tolist()
     order_by_id = np.argsort(ids, kind="stable")  # the admitted ids' order, as before

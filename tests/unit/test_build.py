@@ -79,7 +79,7 @@ def test_removed_document_disappears(tmp_path: Path, wiki: Path) -> None:
     assert report.removed == ["a.md"] and report.documents == 2
     reader = IndexReader(settings.index_dir)
     assert reader.document("a.md") is None and reader.document_chunks("a.md") == []
-    assert reader.counts()[1] == reader.vectors.ntotal == report.chunks
+    assert reader.counts()[1] == reader.faiss_index.ntotal == report.chunks
 
 
 def test_other_roots_are_kept(tmp_path: Path, wiki: Path) -> None:

@@ -102,7 +102,7 @@ def test_max_runtime_stops_at_a_checkpoint_and_the_next_run_finishes(
     reader = IndexReader(settings.index_dir)
     # What was published is whole: every stored document has all its chunks and vectors.
     docs, chunks = reader.counts()
-    assert 0 < docs == first.documents < 30 and chunks == reader.vectors.ntotal > 0
+    assert 0 < docs == first.documents < 30 and chunks == reader.faiss_index.ntotal > 0
     second = refresh_index([wiki], settings, HashingEmbedder(16))
     assert not second.stopped_early and second.documents == 30
     assert len(second.added) == first.pending_left and second.unchanged == docs

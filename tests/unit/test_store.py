@@ -99,7 +99,7 @@ def test_faiss_ranking_matches_brute_force_numpy(tmp_path: Path) -> None:
     keys = list(stored)
     matrix = np.stack([stored[k] for k in keys])
     queries = unit_rows(np.random.default_rng(99), 25, 16)
-    D, I = r.search(queries, 10)
+    D, I = r.nearest(queries, 10)
     assert D.dtype == np.float32 and I.dtype == np.int64 and D.shape == I.shape == (25, 10)
     brute = queries @ matrix.T
     for q in range(25):
@@ -123,7 +123,7 @@ def test_replacing_a_document_drops_its_old_chunks_and_vectors(tmp_path: Path) -
     # FAISS holds exactly the chunk ids SQLite holds.
     conn = sqlite3.connect(tmp_path / DATABASE)
     ids = sorted(i for (i,) in conn.execute("SELECT id FROM chunks"))
-    D, I = r.search(unit_rows(np.random.default_rng(1), 1, 16), 100)
+    D, I = r.nearest(unit_rows(np.random.default_rng(1), 1, 16), 100)
     assert sorted(int(i) for i in I[0] if i >= 0) == ids
     assert len(list(tmp_path.glob("vectors-*.faiss"))) == 1
 
@@ -180,13 +180,13 @@ def test_missing_index_says_how_to_build_one(tmp_path: Path) -> None:
 def test_lost_vector_file_is_rebuilt_from_sqlite(tmp_path: Path) -> None:
     build(tmp_path, n_docs=10)
     q = unit_rows(np.random.default_rng(5), 3, 16)
-    D1, I1 = IndexReader(tmp_path).search(q, 5)
+    D1, I1 = IndexReader(tmp_path).nearest(q, 5)
     (tmp_path / "vectors-1.faiss").unlink()
-    D2, I2 = IndexReader(tmp_path).search(q, 5)
+    D2, I2 = IndexReader(tmp_path).nearest(q, 5)
     np.testing.assert_array_equal(I1, I2)
     with IndexWriter(tmp_path, MODEL, ChunkSettings()) as w:
         w.publish()
-    D3, I3 = IndexReader(tmp_path).search(q, 5)
+    D3, I3 = IndexReader(tmp_path).nearest(q, 5)
     np.testing.assert_array_equal(I1, I3)
 
 

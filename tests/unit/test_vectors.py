@@ -229,13 +229,13 @@ def test_writer_changes_an_ivf_in_place_across_generations(tmp_path: Path) -> No
     assert second.vectors == first.vectors and second.chunks == 3500
     reader = IndexReader(tmp_path, MODEL)
     ids, matrix = stored(tmp_path)
-    assert sorted(index_ids(reader.vectors)) == ids.tolist()
+    assert sorted(index_ids(reader.faiss_index)) == ids.tolist()
     queries = unit(rng.standard_normal((50, D)) + 2 * np.eye(D)[rng.integers(0, D, 50)])
-    _, I_ = reader.search(queries, 10)
+    _, I_ = reader.nearest(queries, 10)
     _, exact = brute_force(queries, matrix, ids, 10)
     assert recall_at(I_, exact) >= 0.95
     keep = ids[::7]
-    _, I_ = reader.search(queries, 10, selector=faiss.IDSelectorBatch(keep))
+    _, I_ = reader.nearest(queries, 10, selector=faiss.IDSelectorBatch(keep))
     assert set(I_[I_ >= 0].tolist()) <= set(keep.tolist())
 
 
@@ -253,7 +253,7 @@ def test_writer_crosses_the_threshold_both_ways(tmp_path: Path) -> None:
     reader = IndexReader(tmp_path, MODEL)
     ids, matrix = stored(tmp_path)
     q = unit(rng.standard_normal((5, D)))
-    np.testing.assert_array_equal(reader.search(q, 10)[1], brute_force(q, matrix, ids, 10)[1])
+    np.testing.assert_array_equal(reader.nearest(q, 10)[1], brute_force(q, matrix, ids, 10)[1])
 
 
 def test_forced_kind_and_nprobe_setting(tmp_path: Path) -> None:
@@ -293,7 +293,7 @@ def test_reader_rebuilds_a_lost_ivf_file_in_memory_as_recorded(tmp_path: Path) -
     recorded = Manifest.read(tmp_path).vectors
     (tmp_path / "vectors-1.faiss").unlink()
     reader = IndexReader(tmp_path, MODEL)
-    assert describe_vectors(reader.vectors) == recorded
+    assert describe_vectors(reader.faiss_index) == recorded
     assert reader.counts() == (150, 1500)
 
 
@@ -312,7 +312,7 @@ def test_check_and_repair_an_ivf_index(tmp_path: Path) -> None:
     after = repair_index(tmp_path, SMALL)
     assert after.ok, after.problems
     assert Manifest.read(tmp_path).vectors["kind"] == IVF
-    assert gone not in index_ids(IndexReader(tmp_path, MODEL).vectors)
+    assert gone not in index_ids(IndexReader(tmp_path, MODEL).faiss_index)
     # A garbled file is rebuilt as the settings choose.
     (tmp_path / "vectors-2.faiss").write_bytes(b"junk")
     assert not check_index(tmp_path).ok
