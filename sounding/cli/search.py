@@ -6,9 +6,9 @@ import json
 
 import click
 
-from ._common import example, index_and_model, settings
+from sounding.indexer.query import MODES
 
-MODES = ("dense", "lexical", "hybrid")
+from ._common import example, index_and_model, settings
 
 
 @click.command(
