@@ -1,20 +1,41 @@
-"""A real uvicorn server on a free loopback port, in a background thread."""
+"""Serving the app to tests: in process, or on a real uvicorn server in a background thread.
+
+``served_index`` is the one factory the API tests use: it writes pages to a folder, indexes
+them with the seeded ``HashingEmbedder``, creates keys, and serves ``create_app`` over it.
+By default the app runs in process (FastAPI's ``TestClient``: the lifespan runs, no socket);
+``socket=True`` puts it on real uvicorn for what only a server shows (bytes on the wire,
+path decoding, a 500 after an exception, concurrency). Either way the test gets an
+``httpx.Client`` whose base URL is the service, so a test reads the same in both.
+"""
 
 from __future__ import annotations
 
-import socket
+import socket as sockets
 import threading
 import time
-from collections.abc import Iterator
+from collections.abc import Callable, Iterable, Iterator, Mapping
 from contextlib import contextmanager
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
 
 import httpx
 import uvicorn
 from fastapi import FastAPI
+from fastapi.testclient import TestClient
+from sounding.indexer.build import refresh_index
+from sounding.indexer.embedding import HashingEmbedder
+from sounding.service.app import create_app
+from sounding.service.keys import KeyStore
+from sounding.service.settings import ServiceSettings
+
+# (name, scope, groups, act_for), as `sounding keys create` takes them.
+KeySpec = tuple[str, str, str | None, bool]
 
 
 def free_port() -> int:
-    with socket.socket() as s:
+    """A loopback port nobody listens on right now."""
+    with sockets.socket() as s:
         s.bind(("127.0.0.1", 0))
         return s.getsockname()[1]
 
@@ -38,3 +59,87 @@ def running(app: FastAPI, timeout: float = 120.0) -> Iterator[str]:
     finally:
         server.should_exit = True
         thread.join(timeout=30)
+
+
+@contextmanager
+def serving(app: FastAPI, *, socket: bool = False) -> Iterator[httpx.Client]:
+    """A client for ``app``: in process (lifespan run, no socket) or over real uvicorn.
+
+    Redirects are not followed in either case, as plain ``httpx`` does not follow them.
+    """
+    if socket:
+        with running(app) as url, httpx.Client(base_url=url) as client:
+            yield client
+    else:
+        with TestClient(app, follow_redirects=False) as client:
+            yield client
+
+
+def write_pages(root: Path, pages: Mapping[str, str | bytes]) -> None:
+    """Write ``pages`` (relative path -> content) under ``root``."""
+    for rel, content in pages.items():
+        path = root / rel
+        path.parent.mkdir(parents=True, exist_ok=True)
+        if isinstance(content, bytes):
+            path.write_bytes(content)
+        else:
+            path.write_text(content)
+
+
+@dataclass
+class Served:
+    """A service over an index of test pages, and what the tests need to talk to it."""
+
+    client: httpx.Client
+    settings: ServiceSettings
+    embedder: HashingEmbedder
+    root: Path
+    keys: dict[str, str] = field(default_factory=dict)  # key name -> secret
+
+    @property
+    def url(self) -> str:
+        """The base URL, without a trailing slash."""
+        return str(self.client.base_url).rstrip("/")
+
+    def auth(self, who: str, **headers: str) -> dict[str, str]:
+        """A bearer header for the key called ``who``, and any extra headers."""
+        return {"Authorization": f"Bearer {self.keys[who]}", **headers}
+
+
+@contextmanager
+def served_index(
+    tmp: Path,
+    pages: Mapping[str, str | bytes],
+    *,
+    embedder: HashingEmbedder | None = None,
+    keys: Iterable[KeySpec] = (),
+    socket: bool = False,
+    app_hook: Callable[[FastAPI], None] | None = None,
+    **settings: Any,
+) -> Iterator[Served]:
+    """Index ``pages`` under ``tmp`` with a seeded fake encoder and serve them.
+
+    ``settings`` are ``ServiceSettings`` fields (``index_dir`` defaults to ``tmp/index`` and
+    ``reload_check_seconds`` to 0); ``app_hook`` may add routes before the app starts.
+    An empty ``pages`` serves a service without an index.
+    """
+    root = tmp / "wiki"
+    root.mkdir(parents=True, exist_ok=True)
+    write_pages(root, pages)
+    settings.setdefault("index_dir", tmp / "index")
+    settings.setdefault("reload_check_seconds", 0)
+    service_settings = ServiceSettings(**settings)
+    embedder = embedder or HashingEmbedder(32, seed=7)
+    if pages:
+        refresh_index([root], service_settings, embedder)
+    secrets: dict[str, str] = {}
+    specs = list(keys)
+    if specs:
+        with KeyStore(service_settings.keys_file) as store:
+            for name, scope, groups, act_for in specs:
+                secrets[name] = store.create(name, scope, groups, act_for)[1]
+    app = create_app(service_settings, embedder=embedder)
+    if app_hook is not None:
+        app_hook(app)
+    with serving(app, socket=socket) as client:
+        yield Served(client, service_settings, embedder, root, secrets)

@@ -1,4 +1,7 @@
-"""The REST API over a real uvicorn server, with a seeded fake encoder."""
+"""The REST API in process (FastAPI's TestClient), with a seeded fake encoder.
+
+One test runs the app on real uvicorn: a running server picks up a new generation.
+"""
 
 from __future__ import annotations
 
@@ -8,10 +11,9 @@ import httpx
 import pytest
 from sounding.indexer.build import refresh_index
 from sounding.indexer.embedding import HashingEmbedder
-from sounding.service.app import create_app
-from sounding.service.settings import ServiceSettings
 
-from tests.serving import running
+from tests.conftest import ServeIndex
+from tests.serving import served_index, write_pages
 
 PAGES = {
     "runbooks/reservoir-valve.md": (
@@ -28,38 +30,20 @@ PAGES = {
 }
 
 
-def write_pages(root: Path, pages: dict[str, str]) -> None:
-    for rel, text in pages.items():
-        path = root / rel
-        path.parent.mkdir(parents=True, exist_ok=True)
-        path.write_text(text)
-
-
 @pytest.fixture(scope="module")
-def wiki(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, ServiceSettings, HashingEmbedder]:
-    root = tmp_path_factory.mktemp("wiki")
-    write_pages(root, PAGES)
-    settings = ServiceSettings(
+def api(serve_index: ServeIndex) -> httpx.Client:
+    served = serve_index(
+        PAGES,
+        embedder=HashingEmbedder(32, seed=1),
         require_keys=False,
-        index_dir=root.parent / f"{root.name}-index",
         max_k=20,
         max_query_chars=200,
-        reload_check_seconds=0,
     )
-    embedder = HashingEmbedder(32, seed=1)
-    refresh_index([root], settings, embedder)
-    return root, settings, embedder
+    return served.client
 
 
-@pytest.fixture(scope="module")
-def base(wiki) -> str:
-    _, settings, embedder = wiki
-    with running(create_app(settings, embedder=embedder)) as url:
-        yield url
-
-
-def test_search_returns_ranked_passages_with_their_origin(base: str) -> None:
-    r = httpx.post(f"{base}/search", json={"query": "unbolting the flange gate", "k": 3})
+def test_search_returns_ranked_passages_with_their_origin(api: httpx.Client) -> None:
+    r = api.post("/search", json={"query": "unbolting the flange gate", "k": 3})
     assert r.status_code == 200
     body = r.json()
     assert body["k"] == 3 and body["generation"] == 1 and body["took_ms"] >= 0
@@ -73,10 +57,8 @@ def test_search_returns_ranked_passages_with_their_origin(base: str) -> None:
     assert scores == sorted(scores, reverse=True) and all(-1.0001 <= s <= 1.0001 for s in scores)
 
 
-def test_max_per_document_caps_passages_of_one_document(base: str) -> None:
-    r = httpx.post(
-        f"{base}/search", json={"query": "reservoir valve", "k": 10, "max_per_document": 1}
-    )
+def test_max_per_document_caps_passages_of_one_document(api: httpx.Client) -> None:
+    r = api.post("/search", json={"query": "reservoir valve", "k": 10, "max_per_document": 1})
     ids = [p["document_id"] for p in r.json()["results"]]
     assert len(ids) == len(set(ids)) == 3
 
@@ -96,21 +78,23 @@ def test_max_per_document_caps_passages_of_one_document(base: str) -> None:
         ([1, 2], 422, "body"),
     ],
 )
-def test_bad_search_requests_get_a_4xx_with_a_reason(base: str, body, status, reason) -> None:
-    r = httpx.post(f"{base}/search", json=body)
+def test_bad_search_requests_get_a_4xx_with_a_reason(
+    api: httpx.Client, body, status, reason
+) -> None:
+    r = api.post("/search", json=body)
     assert r.status_code == status
     assert reason in r.json()["detail"]
 
 
 @pytest.mark.parametrize("raw", [b"{not json", b"", b"\xff\xfe", b'{"query": "a"'])
-def test_malformed_json_is_a_422(base: str, raw: bytes) -> None:
-    r = httpx.post(f"{base}/search", content=raw, headers={"content-type": "application/json"})
+def test_malformed_json_is_a_422(api: httpx.Client, raw: bytes) -> None:
+    r = api.post("/search", content=raw, headers={"content-type": "application/json"})
     assert r.status_code == 422
     assert r.json()["detail"].startswith("invalid request")
 
 
-def test_document_by_id_with_slashes(base: str) -> None:
-    r = httpx.get(f"{base}/documents/runbooks/reservoir-valve.md")
+def test_document_by_id_with_slashes(api: httpx.Client) -> None:
+    r = api.get("/documents/runbooks/reservoir-valve.md")
     assert r.status_code == 200
     doc = r.json()
     assert doc["metadata"]["tags"] == ["runbook", "valves"]
@@ -119,47 +103,43 @@ def test_document_by_id_with_slashes(base: str) -> None:
     assert all(c["tokens"] > 0 for c in doc["chunks"])
 
 
-def test_unknown_document_is_404(base: str) -> None:
-    r = httpx.get(f"{base}/documents/runbooks/none.md")
+def test_unknown_document_is_404(api: httpx.Client) -> None:
+    r = api.get("/documents/runbooks/none.md")
     assert r.status_code == 404 and "runbooks/none.md" in r.json()["detail"]
 
 
-def test_health_reports_index_and_model(base: str) -> None:
-    h = httpx.get(f"{base}/health").json()
+def test_health_reports_index_and_model(api: httpx.Client) -> None:
+    h = api.get("/health").json()
     assert h["status"] == "ok" and h["index_loaded"] is True
     assert (h["documents"], h["chunks"]) == (3, 4)
     assert h["model"]["name"] == "hashing-32" and h["model"]["dimension"] == 32
 
 
-def test_openapi_schema_lists_every_endpoint(base: str) -> None:
-    paths = httpx.get(f"{base}/openapi.json").json()["paths"]
+def test_openapi_schema_lists_every_endpoint(api: httpx.Client) -> None:
+    paths = api.get("/openapi.json").json()["paths"]
     assert {"/search", "/documents/{document_id}", "/health"} <= set(paths)
 
 
 def test_service_without_an_index_says_why(tmp_path: Path) -> None:
-    settings = ServiceSettings(require_keys=False, index_dir=tmp_path / "none")
-    with running(create_app(settings, embedder=HashingEmbedder(32))) as url:
-        h = httpx.get(f"{url}/health").json()
+    with served_index(tmp_path, {}, embedder=HashingEmbedder(32), require_keys=False) as served:
+        h = served.client.get("/health").json()
         assert h["status"] == "no-index" and "sounding index" in h["detail"]
-        r = httpx.post(f"{url}/search", json={"query": "valve"})
+        r = served.client.post("/search", json={"query": "valve"})
         assert r.status_code == 503 and "no index" in r.json()["detail"]
 
 
 def test_running_service_switches_to_a_new_generation(tmp_path: Path) -> None:
-    root = tmp_path / "wiki"
-    write_pages(root, PAGES)
-    settings = ServiceSettings(
-        require_keys=False,
-        index_dir=tmp_path / "idx",
-        reload_check_seconds=0,
-    )
-    embedder = HashingEmbedder(32, seed=1)
-    refresh_index([root], settings, embedder)
-    with running(create_app(settings, embedder=embedder)) as url:
-        assert httpx.get(f"{url}/health").json()["documents"] == 3
-        write_pages(root, {"hr/bikes.md": "# Bike shed\n\nThe bike shed code is on the board.\n"})
-        refresh_index([root], settings, embedder)
-        h = httpx.get(f"{url}/health").json()
+    """On real uvicorn: a server that keeps running serves the next generation."""
+    with served_index(
+        tmp_path, PAGES, embedder=HashingEmbedder(32, seed=1), require_keys=False, socket=True
+    ) as served:
+        api: httpx.Client = served.client
+        assert api.get("/health").json()["documents"] == 3
+        write_pages(
+            served.root, {"hr/bikes.md": "# Bike shed\n\nThe bike shed code is on the board.\n"}
+        )
+        refresh_index([served.root], served.settings, served.embedder)
+        h = api.get("/health").json()
         assert (h["documents"], h["generation"]) == (4, 2)
-        r = httpx.post(f"{url}/search", json={"query": "bike shed code", "k": 1})
+        r = api.post("/search", json={"query": "bike shed code", "k": 1})
         assert r.json()["results"][0]["document_id"] == "hr/bikes.md"

@@ -1,4 +1,4 @@
-"""Who is calling: bearer keys, scopes, groups and act-for, over a real uvicorn server.
+"""Who is calling: bearer keys, scopes, groups and act-for, in process (FastAPI's TestClient).
 
 The routes here are a tiny app of their own, so these tests check the
 dependencies in ``service.auth`` whatever the real routes look like.
@@ -13,7 +13,6 @@ from contextlib import asynccontextmanager
 from dataclasses import asdict
 from pathlib import Path
 
-import httpx
 import pytest
 from fastapi import FastAPI, Request
 from fastapi.testclient import TestClient
@@ -33,7 +32,7 @@ from sounding.service.auth import (
 from sounding.service.keys import KeyStore
 from sounding.service.settings import ServiceSettings
 
-from tests.serving import running
+from tests.serving import serving
 
 
 def tiny_app(settings: ServiceSettings) -> FastAPI:
@@ -89,18 +88,18 @@ def served(tmp_path_factory: pytest.TempPathFactory):
                 ("doomed", "read", "", False),
             ]
         }
-    with running(tiny_app(settings)) as url:
-        yield url, secrets, settings
+    with serving(tiny_app(settings)) as client:
+        yield client, secrets, settings
 
 
 def test_health_never_needs_a_key(served) -> None:
-    url, _, _ = served
-    assert httpx.get(f"{url}/health").status_code == 200
+    client, _, _ = served
+    assert client.get("/health").status_code == 200
 
 
 def test_no_key_is_401_with_a_bearer_challenge_and_a_reason(served) -> None:
-    url, _, _ = served
-    r = httpx.get(f"{url}/read")
+    client, _, _ = served
+    r = client.get("/read")
     assert r.status_code == 401
     assert r.headers["www-authenticate"] == 'Bearer realm="sounding"'  # no error code: 3.1
     assert "Authorization: Bearer" in r.json()["detail"]
@@ -117,25 +116,25 @@ def test_no_key_is_401_with_a_bearer_challenge_and_a_reason(served) -> None:
     ],
 )
 def test_bad_keys_are_401_naming_the_reason(served, authorization, error, reason) -> None:
-    url, _, _ = served
-    r = httpx.get(f"{url}/read", headers={"Authorization": authorization})
+    client, _, _ = served
+    r = client.get("/read", headers={"Authorization": authorization})
     assert r.status_code == 401 and reason in r.json()["detail"]
     challenge = r.headers["www-authenticate"]
     assert challenge.startswith('Bearer realm="sounding", ') and f'error="{error}"' in challenge
 
 
 def test_wrong_secret_of_a_real_key_is_refused(served) -> None:
-    url, secrets, _ = served
+    client, secrets, _ = served
     good = secrets["boss"]
     bad = good[:-1] + ("A" if good[-1] != "A" else "B")
-    assert httpx.get(f"{url}/read", headers=bearer(good)).status_code == 200
-    r = httpx.get(f"{url}/read", headers=bearer(bad))
+    assert client.get("/read", headers=bearer(good)).status_code == 200
+    r = client.get("/read", headers=bearer(bad))
     assert r.status_code == 401 and "not recognised" in r.json()["detail"]
 
 
 def test_scheme_is_case_insensitive(served) -> None:
-    url, secrets, _ = served
-    r = httpx.get(f"{url}/read", headers={"Authorization": f"bearer {secrets['reader']}"})
+    client, secrets, _ = served
+    r = client.get("/read", headers={"Authorization": f"bearer {secrets['reader']}"})
     assert r.status_code == 200  # RFC 9110 section 11.1: the auth scheme is case-insensitive
 
 
@@ -144,9 +143,9 @@ def test_scheme_is_case_insensitive(served) -> None:
     [("reader", {"read"}), ("writer", {"read", "write"}), ("boss", {"read", "write", "admin"})],
 )
 def test_each_scope_includes_the_lower_ones(served, key: str, allowed: set[str]) -> None:
-    url, secrets, _ = served
+    client, secrets, _ = served
     for scope, method in (("read", "GET"), ("write", "POST"), ("admin", "DELETE")):
-        r = httpx.request(method, f"{url}/{scope}", headers=bearer(secrets[key]))
+        r = client.request(method, f"/{scope}", headers=bearer(secrets[key]))
         if scope in allowed:
             assert r.status_code == 200, (key, scope, r.text)
             assert r.json()["name"] == key
@@ -158,8 +157,8 @@ def test_each_scope_includes_the_lower_ones(served, key: str, allowed: set[str])
 
 
 def test_caller_carries_the_keys_own_groups(served) -> None:
-    url, secrets, _ = served
-    body = httpx.get(f"{url}/read", headers=bearer(secrets["boss"])).json()
+    client, secrets, _ = served
+    body = client.get("/read", headers=bearer(secrets["boss"])).json()
     assert body["groups"] == ["finance", "hr"] and body["scope"] == "admin"
     assert body["on_behalf"] is False and body["act_for"] is False and body["key_id"]
     assert body["logged"] is True  # request.state.caller is the same object
@@ -175,8 +174,8 @@ def test_caller_carries_the_keys_own_groups(served) -> None:
     ],
 )
 def test_act_for_key_takes_exactly_the_end_users_groups(served, value, groups) -> None:
-    url, secrets, _ = served
-    r = httpx.get(f"{url}/read", headers=bearer(secrets["chat-bot"]) | {ON_BEHALF_HEADER: value})
+    client, secrets, _ = served
+    r = client.get("/read", headers=bearer(secrets["chat-bot"]) | {ON_BEHALF_HEADER: value})
     assert r.status_code == 200, r.text
     body = r.json()
     assert body["groups"] == groups  # never the bot's own "bots"
@@ -184,15 +183,15 @@ def test_act_for_key_takes_exactly_the_end_users_groups(served, value, groups) -
 
 
 def test_act_for_key_without_the_header_has_its_own_groups(served) -> None:
-    url, secrets, _ = served
-    body = httpx.get(f"{url}/read", headers=bearer(secrets["chat-bot"])).json()
+    client, secrets, _ = served
+    body = client.get("/read", headers=bearer(secrets["chat-bot"])).json()
     assert body["groups"] == ["bots"] and body["on_behalf"] is False and body["act_for"] is True
 
 
 @pytest.mark.parametrize("key", ["reader", "writer", "boss"])
 def test_keys_without_act_for_may_not_send_the_header(served, key: str) -> None:
-    url, secrets, _ = served
-    r = httpx.get(f"{url}/read", headers=bearer(secrets[key]) | {ON_BEHALF_HEADER: "hr"})
+    client, secrets, _ = served
+    r = client.get("/read", headers=bearer(secrets[key]) | {ON_BEHALF_HEADER: "hr"})
     assert r.status_code == 403
     assert f"key '{key}' lacks the act-for right" in r.json()["detail"]
 
@@ -210,30 +209,30 @@ def test_keys_without_act_for_may_not_send_the_header(served, key: str) -> None:
     ],
 )
 def test_on_behalf_values_are_checked(served, value, reason) -> None:
-    url, secrets, _ = served
-    r = httpx.get(f"{url}/read", headers=bearer(secrets["chat-bot"]) | {ON_BEHALF_HEADER: value})
+    client, secrets, _ = served
+    r = client.get("/read", headers=bearer(secrets["chat-bot"]) | {ON_BEHALF_HEADER: value})
     assert r.status_code == 400 and reason in r.json()["detail"], r.text
 
 
 @pytest.mark.parametrize("name", ["Authorization", ON_BEHALF_HEADER])
 def test_repeated_headers_are_refused(served, name: str) -> None:
-    url, secrets, _ = served
+    client, secrets, _ = served
     headers = [("Authorization", f"Bearer {secrets['chat-bot']}"), (ON_BEHALF_HEADER, "hr")]
     headers.append((name, "Bearer x" if name == "Authorization" else "finance"))
-    r = httpx.get(f"{url}/read", headers=headers)
+    r = client.get("/read", headers=headers)
     assert r.status_code == 400 and f"send the {name} header once" in r.json()["detail"]
 
 
 def test_keys_made_and_revoked_while_running_count_at_once(served) -> None:
-    url, secrets, settings = served
-    assert httpx.get(f"{url}/read", headers=bearer(secrets["doomed"])).status_code == 200
+    client, secrets, settings = served
+    assert client.get("/read", headers=bearer(secrets["doomed"])).status_code == 200
     with KeyStore(settings.keys_file) as cli:  # what `sounding keys ...` does, aside
         cli.revoke("doomed")
         _, fresh = cli.create("fresh", "read")
-    r = httpx.get(f"{url}/read", headers=bearer(secrets["doomed"]))
+    r = client.get("/read", headers=bearer(secrets["doomed"]))
     assert r.status_code == 401 and "'doomed'" in r.json()["detail"]
     assert "revoked" in r.json()["detail"] and "invalid_token" in r.headers["www-authenticate"]
-    assert httpx.get(f"{url}/read", headers=bearer(fresh)).json()["name"] == "fresh"
+    assert client.get("/read", headers=bearer(fresh)).json()["name"] == "fresh"
 
 
 # --- keys off, on loopback only ------------------------------------------------------
@@ -244,14 +243,14 @@ def open_door(tmp_path_factory: pytest.TempPathFactory):
     settings = ServiceSettings(index_dir=tmp_path_factory.mktemp("idx"), require_keys=False)
     with KeyStore(settings.keys_file) as store:
         _, secret = store.create("reader", "read", "hr")
-    with running(tiny_app(settings)) as url:
-        yield url, secret
+    with serving(tiny_app(settings)) as client:
+        yield client, secret
 
 
 def test_keys_off_makes_every_caller_anonymous_with_no_groups(open_door) -> None:
-    url, _ = open_door
+    client, _ = open_door
     for method, path in (("GET", "/read"), ("POST", "/write"), ("DELETE", "/admin")):
-        r = httpx.request(method, f"{url}{path}")
+        r = client.request(method, path)
         assert r.status_code == 200
         body = r.json()
         assert body["name"] == "anonymous" and body["groups"] == []
@@ -259,17 +258,17 @@ def test_keys_off_makes_every_caller_anonymous_with_no_groups(open_door) -> None
 
 
 def test_keys_off_anonymous_may_not_act_for_anyone(open_door) -> None:
-    url, _ = open_door
-    r = httpx.get(f"{url}/read", headers={ON_BEHALF_HEADER: "hr"})
+    client, _ = open_door
+    r = client.get("/read", headers={ON_BEHALF_HEADER: "hr"})
     assert r.status_code == 403 and "anonymous callers lack the act-for right" in r.text
 
 
 def test_keys_off_a_key_sent_anyway_is_still_checked(open_door) -> None:
-    url, secret = open_door
-    body = httpx.get(f"{url}/read", headers=bearer(secret)).json()
+    client, secret = open_door
+    body = client.get("/read", headers=bearer(secret)).json()
     assert body["name"] == "reader" and body["groups"] == ["hr"]
-    assert httpx.post(f"{url}/write", headers=bearer(secret)).status_code == 403
-    assert httpx.get(f"{url}/read", headers=bearer("hunter2")).status_code == 401
+    assert client.post("/write", headers=bearer(secret)).status_code == 403
+    assert client.get("/read", headers=bearer("hunter2")).status_code == 401
 
 
 # --- settings, start-up and the API itself ---------------------------------------------

@@ -1,17 +1,13 @@
-"""``POST /context`` over a real uvicorn server, with the seeded fake encoder and real keys."""
+"""``POST /context`` in process (FastAPI's TestClient), with the seeded fake encoder and keys."""
 
 from __future__ import annotations
 
 import httpx
 import pytest
-from sounding.indexer.build import refresh_index
 from sounding.indexer.embedding import HashingEmbedder, WhitespaceTokenizer
 from sounding.indexer.grounding import token_counter
-from sounding.service.app import create_app
-from sounding.service.keys import KeyStore
-from sounding.service.settings import ServiceSettings
 
-from tests.serving import running
+from tests.conftest import ServeIndex
 
 # One long section (several windows at 64 word pieces), short ones, and a restricted page.
 IMPELLER = " ".join(
@@ -33,40 +29,28 @@ COUNT = token_counter(WhitespaceTokenizer())  # HashingEmbedder's tokenizer
 
 
 @pytest.fixture(scope="module")
-def service(tmp_path_factory: pytest.TempPathFactory):
-    root = tmp_path_factory.mktemp("wiki")
-    for rel, text in PAGES.items():
-        (root / rel).parent.mkdir(parents=True, exist_ok=True)
-        (root / rel).write_text(text)
-    settings = ServiceSettings(
-        index_dir=root.parent / f"{root.name}-index",
+def service(serve_index: ServeIndex) -> tuple[httpx.Client, dict[str, str]]:
+    served = serve_index(
+        PAGES,
+        embedder=HashingEmbedder(32, seed=3),
+        keys=[
+            ("reader", "read", None, False),
+            ("hr-reader", "read", "hr", False),
+            ("bot", "read", None, True),
+        ],
         max_query_chars=200,
-        reload_check_seconds=0,
         chunk_tokens=64,
         chunk_overlap=16,
         max_context_tokens=3000,
         max_context_chars=12000,
     )
-    embedder = HashingEmbedder(32, seed=3)
-    refresh_index([root], settings, embedder)
-    store = KeyStore(settings.keys_file)
-    keys = {
-        name: store.create(name, "read", groups, act_for=act_for)[1]
-        for name, groups, act_for in [
-            ("reader", None, False),
-            ("hr-reader", "hr", False),
-            ("bot", None, True),
-        ]
-    }
-    store.close()
-    with running(create_app(settings, embedder=embedder)) as url:
-        yield url, keys
+    return served.client, served.keys
 
 
 def ask(service, body, key: str = "reader", **headers: str) -> httpx.Response:
-    url, keys = service
-    return httpx.post(
-        f"{url}/context", json=body, headers={"Authorization": f"Bearer {keys[key]}", **headers}
+    client, keys = service
+    return client.post(
+        "/context", json=body, headers={"Authorization": f"Bearer {keys[key]}", **headers}
     )
 
 
@@ -159,8 +143,8 @@ def test_restricted_document_only_for_its_group_and_on_behalf_of_its_members(ser
 
 
 def test_a_key_is_required(service) -> None:
-    url, _ = service
-    r = httpx.post(f"{url}/context", json={"query": "impeller", "budget": 100})
+    client, _ = service
+    r = client.post("/context", json={"query": "impeller", "budget": 100})
     assert r.status_code == 401
 
 
@@ -187,6 +171,6 @@ def test_bad_requests_get_a_422_with_a_reason(service, body, reason: str) -> Non
 
 
 def test_openapi_lists_context(service) -> None:
-    url, _ = service
-    paths = httpx.get(f"{url}/openapi.json").json()["paths"]
+    client, _ = service
+    paths = client.get("/openapi.json").json()["paths"]
     assert "/context" in paths

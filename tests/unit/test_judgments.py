@@ -3,19 +3,18 @@
 from __future__ import annotations
 
 import json
+from collections.abc import Iterator
 from pathlib import Path
 
 import httpx
 import pytest
-from sounding.indexer.build import refresh_index
 from sounding.indexer.embedding import HashingEmbedder
 from sounding.indexer.errors import SettingsError
 from sounding.indexer.evaluation import read_qrels, read_queries
 from sounding.indexer.judgments import JudgmentStore, query_id
-from sounding.service.app import create_app
 from sounding.service.settings import ServiceSettings
 
-from tests.serving import running
+from tests.serving import served_index
 
 
 @pytest.mark.parametrize(
@@ -55,28 +54,26 @@ def test_nothing_to_export_is_an_error(tmp_path: Path) -> None:
 
 
 @pytest.fixture
-def served(tmp_path: Path):
-    root = tmp_path / "docs"
-    root.mkdir()
-    (root / "rota.md").write_text("# Standby rota\n\nThe standby engineer carries the pager.\n")
-    (root / "canteen.md").write_text("# Canteen\n\nLunch from noon.\n")
-    settings = ServiceSettings(require_keys=False, index_dir=tmp_path / "idx")
-    refresh_index([root], settings, HashingEmbedder(16))
-    with running(create_app(settings, embedder=HashingEmbedder(16))) as url:
-        yield url, settings
+def served(tmp_path: Path) -> Iterator[tuple[httpx.Client, ServiceSettings]]:
+    pages = {
+        "rota.md": "# Standby rota\n\nThe standby engineer carries the pager.\n",
+        "canteen.md": "# Canteen\n\nLunch from noon.\n",
+    }
+    with served_index(tmp_path, pages, embedder=HashingEmbedder(16), require_keys=False) as s:
+        yield s.client, s.settings
 
 
 def test_feedback_is_recorded_and_exported(served, tmp_path: Path) -> None:
-    url, settings = served
-    hit = httpx.post(f"{url}/search", json={"query": "pager standby"}).json()["results"][0]
-    r = httpx.post(
-        f"{url}/feedback",
+    client, settings = served
+    hit = client.post("/search", json={"query": "pager standby"}).json()["results"][0]
+    r = client.post(
+        "/feedback",
         json={"query": "pager standby", "chunk_id": hit["chunk_id"], "grade": 3, "user": "ann"},
     )
     assert r.status_code == 201
     assert r.json()["document_id"] == hit["document_id"] == "rota.md"
-    r = httpx.post(
-        f"{url}/feedback", json={"query": "pager standby", "document_id": "canteen.md", "grade": 0}
+    r = client.post(
+        "/feedback", json={"query": "pager standby", "document_id": "canteen.md", "grade": 0}
     )
     assert r.status_code == 201
     store = JudgmentStore(settings.judgments_file)
@@ -97,6 +94,6 @@ def test_feedback_is_recorded_and_exported(served, tmp_path: Path) -> None:
     ],
 )
 def test_bad_feedback_gets_a_reason(served, body, status, reason) -> None:
-    url, _ = served
-    r = httpx.post(f"{url}/feedback", json=body)
+    client, _ = served
+    r = client.post("/feedback", json=body)
     assert r.status_code == status and reason in r.json()["detail"]

@@ -1,4 +1,8 @@
-"""Request ids and one-JSON-object-per-line logs, on a real uvicorn server and `sounding serve`."""
+"""Request ids and one-JSON-object-per-line logs, on a real uvicorn server and `sounding serve`.
+
+Real uvicorn rather than an in-process client: what is logged for a request, and the 500
+after a route raises, are the server's behaviour (a test client re-raises instead).
+"""
 
 from __future__ import annotations
 
@@ -11,23 +15,26 @@ import signal
 import subprocess
 import sys
 import time
-from collections.abc import Iterator
 from datetime import datetime, timedelta
 from pathlib import Path
 
 import httpx
 import pytest
+from fastapi import FastAPI
+from sounding.indexer.build import refresh_index
 from sounding.indexer.embedding import HashingEmbedder
-from sounding.service.app import INTERNAL_ERROR, create_app
+from sounding.service.app import INTERNAL_ERROR
 from sounding.service.logs import (
     MAX_REQUEST_ID_CHARS,
     JsonFormatter,
     accept_request_id,
     current_request_id,
 )
+from sounding.service.settings import ServiceSettings
 
-from tests.serving import free_port, running
-from tests.unit.test_metrics import REQUESTS, build, scrape, value
+from tests.conftest import ServeIndex
+from tests.serving import free_port, write_pages
+from tests.unit.test_metrics import PAGES, REQUESTS, scrape, value
 
 GENERATED = re.compile(r"[0-9a-f]{32}")
 SECRET_QUERY = "salary of jane doe"  # stands for personal data in a query
@@ -52,38 +59,48 @@ class Captured:
         self.logger.removeHandler(self.handler)
         self.logger.setLevel(self.old_level)
 
-    def records(self, access_lines: int = 1, errors: int = 0) -> list[dict]:
-        """The lines so far, once ``access_lines`` access lines and ``errors`` error lines
-        are in (or after 10 s): the server thread writes them after the answer is sent,
-        so call this inside the block."""
+    def lines(self) -> list[dict]:
+        """Every line so far."""
+        return [json.loads(line) for line in self.stream.getvalue().splitlines()]
+
+    def records(self, *answers: httpx.Response, errors: int = 0) -> list[dict]:
+        """The lines of these answers' requests, found by the request id each answer echoes,
+        once each has its access line and ``errors`` error lines are in (or after 10 s).
+
+        The server thread writes a request's lines after the answer is sent, so call this
+        inside the block; an earlier request's line that lands late is not one of these.
+        """
+        ids = {r.headers["x-request-id"] for r in answers}
         deadline = time.monotonic() + 10
         while True:
-            entries = [json.loads(line) for line in self.stream.getvalue().splitlines()]
+            entries = [e for e in self.lines() if e.get("request_id") in ids]
             if (
-                sum(e["logger"] == "sounding.access" for e in entries) >= access_lines
+                sum(e["logger"] == "sounding.access" for e in entries) >= len(answers)
                 and sum(e["level"] == "error" for e in entries) >= errors
             ) or time.monotonic() > deadline:
                 return entries
             time.sleep(0.02)
 
 
-@pytest.fixture(scope="module")
-def served(tmp_path_factory: pytest.TempPathFactory) -> Iterator[tuple[str, Path]]:
-    embedder = HashingEmbedder(16)
-    _, settings = build(tmp_path_factory.mktemp("logs"), embedder)
-    app = create_app(settings, embedder=embedder)
+def add_boom(app: FastAPI) -> None:
+    """A route with a bug in it, for the 500 test."""
 
     @app.get("/test-only-boom")
     def boom() -> None:
         raise RuntimeError("a bug in a route")
 
-    with running(app) as url:
-        yield url, settings.index_dir
-
 
 @pytest.fixture(scope="module")
-def base(served: tuple[str, Path]) -> str:
-    return served[0]
+def wire(serve_index: ServeIndex) -> httpx.Client:
+    served = serve_index(
+        PAGES,
+        embedder=HashingEmbedder(16),
+        require_keys=False,
+        max_body_bytes=4096,
+        socket=True,
+        app_hook=add_boom,
+    )
+    return served.client
 
 
 @pytest.mark.parametrize(
@@ -112,10 +129,10 @@ def test_a_bad_request_id_is_replaced(given: str | None) -> None:
     assert GENERATED.fullmatch(accept_request_id(given))
 
 
-def test_given_request_id_is_echoed_and_logged(base: str) -> None:
+def test_given_request_id_is_echoed_and_logged(wire: httpx.Client) -> None:
     with Captured() as logs:
-        r = httpx.get(f"{base}/health", headers={"X-Request-ID": "trace-0001"})
-        entries = logs.records()
+        r = wire.get("/health", headers={"X-Request-ID": "trace-0001"})
+        entries = logs.records(r)
     assert r.headers["x-request-id"] == "trace-0001"
     (access,) = [e for e in entries if e["logger"] == "sounding.access"]
     assert access["request_id"] == "trace-0001"
@@ -123,42 +140,45 @@ def test_given_request_id_is_echoed_and_logged(base: str) -> None:
     assert access["duration_ms"] >= 0 and access["level"] == "info"
 
 
-def test_without_an_id_each_request_gets_its_own(base: str) -> None:
-    ids = [httpx.get(f"{base}/health").headers["x-request-id"] for _ in range(3)]
+def test_without_an_id_each_request_gets_its_own(wire: httpx.Client) -> None:
+    ids = [wire.get("/health").headers["x-request-id"] for _ in range(3)]
     assert all(GENERATED.fullmatch(i) for i in ids) and len(set(ids)) == 3
 
 
 @pytest.mark.parametrize("bad", ["x" * 200, "two words", "é"])
-def test_a_bad_incoming_id_is_replaced_in_the_answer_and_the_log(base: str, bad: str) -> None:
+def test_a_bad_incoming_id_is_replaced_in_the_answer_and_the_log(
+    wire: httpx.Client, bad: str
+) -> None:
     with Captured() as logs:
-        r = httpx.get(f"{base}/health", headers={"X-Request-ID": bad.encode("utf-8")})
-        entries = logs.records()
+        r = wire.get("/health", headers={"X-Request-ID": bad.encode("utf-8")})
+        entries = logs.records(r)
     echoed = r.headers["x-request-id"]
     assert GENERATED.fullmatch(echoed)
+    # Exactly one access line carries the id the answer echoed: the log and answer agree.
     (access,) = [e for e in entries if e["logger"] == "sounding.access"]
     assert access["request_id"] == echoed
 
 
-def test_refusals_from_request_limits_carry_the_id(base: str) -> None:
-    r = httpx.post(
-        f"{base}/search",
+def test_refusals_from_request_limits_carry_the_id(wire: httpx.Client) -> None:
+    r = wire.post(
+        "/search",
         content=b"x" * 5000,
         headers={"content-type": "application/json", "X-Request-ID": "too-big-1"},
     )
     assert r.status_code == 413 and r.headers["x-request-id"] == "too-big-1"
-    r = httpx.post(
-        f"{base}/search",
+    r = wire.post(
+        "/search",
         content=b'{"query": NaN}',
         headers={"content-type": "application/json", "X-Request-ID": "nan-1"},
     )
     assert r.status_code == 422 and r.headers["x-request-id"] == "nan-1"
 
 
-def test_access_lines_hold_no_query_text_nor_document_path(base: str) -> None:
+def test_access_lines_hold_no_query_text_nor_document_path(wire: httpx.Client) -> None:
     with Captured() as logs:
-        httpx.post(f"{base}/search", json={"query": SECRET_QUERY, "mode": "dense"})
-        httpx.get(f"{base}/documents/hr/jane-doe-review.md")
-        entries = logs.records(access_lines=2)
+        search = wire.post("/search", json={"query": SECRET_QUERY, "mode": "dense"})
+        document = wire.get("/documents/hr/jane-doe-review.md")
+        entries = logs.records(search, document)
         lines = logs.stream.getvalue()
     assert SECRET_QUERY not in lines and "jane" not in lines and "review" not in lines
     routes = [
@@ -167,18 +187,22 @@ def test_access_lines_hold_no_query_text_nor_document_path(base: str) -> None:
     assert routes == [("/search", "dense", 200), ("/documents/{document_id}", "none", 404)]
 
 
-def test_an_unexpected_error_is_a_500_whose_id_finds_the_traceback(base: str) -> None:
-    before, _ = scrape(base)
+def test_an_unexpected_error_is_a_500_whose_id_finds_the_traceback(wire: httpx.Client) -> None:
+    before, _ = scrape(wire)
     with Captured() as logs:
-        r = httpx.get(f"{base}/test-only-boom", headers={"X-Request-ID": "boom-7"})
-        records = logs.records(errors=1)
+        r = wire.get("/test-only-boom", headers={"X-Request-ID": "boom-7"})
+        records = logs.records(r, errors=1)
+        every = logs.lines()
     assert r.status_code == 500 and r.json() == {"detail": INTERNAL_ERROR}
     assert r.headers["x-request-id"] == "boom-7"
-    errors = [e for e in records if e["level"] == "error"]
+    errors = [e for e in every if e["level"] == "error"]  # all of them, whatever their id
     assert errors and all(e["request_id"] == "boom-7" for e in errors)
     assert any("RuntimeError: a bug in a route" in e.get("exception", "") for e in errors)
     assert any(e["logger"] == "sounding.access" and e["status"] == 500 for e in records)
-    after, _ = scrape(base)
+    # uvicorn closes the connection once an exception escapes the app after the answer
+    # (uvicorn/protocols/http/h11_impl.py, run_asgi): scrape on a connection of its own.
+    with httpx.Client(base_url=wire.base_url) as fresh:
+        after, _ = scrape(fresh)
     labels = {"route": "/test-only-boom", "method": "GET", "mode": "none", "status": "500"}
     assert value(after, REQUESTS, **labels) - value(before, REQUESTS, **labels) == 1
 
@@ -243,7 +267,9 @@ def test_log_config_is_valid_for_dictconfig(fmt: str) -> None:
 
 def test_sounding_serve_logs_json_lines_with_request_ids(tmp_path: Path) -> None:
     """The real command: every line on stderr is a JSON object, uvicorn's included."""
-    _, settings = build(tmp_path, HashingEmbedder(16))
+    settings = ServiceSettings(index_dir=tmp_path / "index")
+    write_pages(tmp_path / "wiki", PAGES)
+    refresh_index([tmp_path / "wiki"], settings, HashingEmbedder(16))
     port = free_port()
     # The bundled encoder is not what this test is about: serve with the seeded fake.
     script = (

@@ -1,8 +1,9 @@
-"""``GET /metrics`` over a real uvicorn server, parsed with prometheus_client's own parser."""
+"""``GET /metrics`` in process (FastAPI's TestClient), parsed with prometheus_client's parser."""
 
 from __future__ import annotations
 
 from collections.abc import Iterator
+from contextlib import AbstractContextManager
 from pathlib import Path
 
 import httpx
@@ -12,12 +13,10 @@ from sounding.indexer.build import refresh_index
 from sounding.indexer.embedding import HashingEmbedder
 from sounding.indexer.errors import IndexMismatchError
 from sounding.indexer.store import read_last_run
-from sounding.service.app import create_app
 from sounding.service.limits import DEFAULT_MAX_JSON_DEPTH
 from sounding.service.metrics import BUCKETS, ServiceMetrics
-from sounding.service.settings import ServiceSettings
 
-from tests.serving import running
+from tests.serving import Served, served_index
 
 PAGES = {
     "runbooks/valve.md": "# Valve\n\n## Isolation\n\nClose the upstream gate first.\n",
@@ -26,25 +25,14 @@ PAGES = {
 Samples = dict[tuple[str, frozenset], float]
 
 
-def settings_for(index_dir: Path, **extra) -> ServiceSettings:
-    # Keys are not what these tests are about; the setting exists once auth lands.
-    if "require_keys" in ServiceSettings.model_fields:
-        extra.setdefault("require_keys", False)
-    return ServiceSettings(index_dir=index_dir, reload_check_seconds=0, **extra)
+def serve(tmp: Path, pages: dict[str, str] = PAGES, **options) -> AbstractContextManager[Served]:
+    """These pages served in process; keys are not what these tests are about."""
+    options.setdefault("embedder", HashingEmbedder(16))
+    return served_index(tmp, pages, require_keys=False, max_body_bytes=4096, **options)
 
 
-def build(tmp: Path, embedder: HashingEmbedder) -> tuple[Path, ServiceSettings]:
-    root = tmp / "wiki"
-    for rel, text in PAGES.items():
-        (root / rel).parent.mkdir(parents=True, exist_ok=True)
-        (root / rel).write_text(text)
-    settings = settings_for(tmp / "index", max_body_bytes=4096)
-    refresh_index([root], settings, embedder)
-    return root, settings
-
-
-def scrape(base: str) -> tuple[Samples, str]:
-    r = httpx.get(f"{base}/metrics")
+def scrape(client: httpx.Client) -> tuple[Samples, str]:
+    r = client.get("/metrics")
     assert r.status_code == 200
     # The classic text format, version 0.0.4 (Prometheus "Exposition formats" docs).
     assert r.headers["content-type"].startswith("text/plain; version=0.0.4")
@@ -64,19 +52,17 @@ LATENCY = "sounding_http_request_duration_seconds"
 
 
 @pytest.fixture(scope="module")
-def base(tmp_path_factory: pytest.TempPathFactory) -> Iterator[str]:
-    embedder = HashingEmbedder(16)
-    _, settings = build(tmp_path_factory.mktemp("metrics"), embedder)
-    with running(create_app(settings, embedder=embedder)) as url:
-        yield url
+def api(tmp_path_factory: pytest.TempPathFactory) -> Iterator[httpx.Client]:
+    with serve(tmp_path_factory.mktemp("metrics")) as served:
+        yield served.client
 
 
-def test_search_counts_and_latency_move_per_mode(base: str) -> None:
-    before, _ = scrape(base)
+def test_search_counts_and_latency_move_per_mode(api: httpx.Client) -> None:
+    before, _ = scrape(api)
     for mode in ("lexical", "lexical", "hybrid"):
-        r = httpx.post(f"{base}/search", json={"query": "upstream gate", "mode": mode})
+        r = api.post("/search", json={"query": "upstream gate", "mode": mode})
         assert r.status_code == 200
-    after, _ = scrape(base)
+    after, _ = scrape(api)
     ok = {"route": "/search", "method": "POST", "status": "200"}
     assert (
         value(after, REQUESTS, mode="lexical", **ok) - value(before, REQUESTS, mode="lexical", **ok)
@@ -93,9 +79,9 @@ def test_search_counts_and_latency_move_per_mode(base: str) -> None:
     assert value(after, f"{LATENCY}_sum", **timed) > 0
 
 
-def test_histogram_buckets_are_cumulative_up_to_the_count(base: str) -> None:
-    httpx.get(f"{base}/health")
-    samples, _ = scrape(base)
+def test_histogram_buckets_are_cumulative_up_to_the_count(api: httpx.Client) -> None:
+    api.get("/health")
+    samples, _ = scrape(api)
     labels = {"route": "/health", "method": "GET", "mode": "none"}
     bounds = [*(str(b) for b in BUCKETS), "+Inf"]
     counts = [value(samples, f"{LATENCY}_bucket", le=le, **labels) for le in bounds]
@@ -103,19 +89,19 @@ def test_histogram_buckets_are_cumulative_up_to_the_count(base: str) -> None:
     assert counts[-1] == value(samples, f"{LATENCY}_count", **labels) >= 1
 
 
-def test_a_request_refused_by_validation_is_counted_without_a_mode(base: str) -> None:
-    before, _ = scrape(base)
-    assert httpx.post(f"{base}/search", json={"query": ""}).status_code == 422
-    after, _ = scrape(base)
+def test_a_request_refused_by_validation_is_counted_without_a_mode(api: httpx.Client) -> None:
+    before, _ = scrape(api)
+    assert api.post("/search", json={"query": ""}).status_code == 422
+    after, _ = scrape(api)
     bad = {"route": "/search", "method": "POST", "mode": "none", "status": "422"}
     assert value(after, REQUESTS, **bad) - value(before, REQUESTS, **bad) == 1
 
 
-def test_labels_are_route_templates_never_ids_or_paths(base: str) -> None:
-    assert httpx.get(f"{base}/documents/some-secret-id").status_code == 404
-    assert httpx.get(f"{base}/documents/runbooks/valve.md").status_code == 200
-    assert httpx.get(f"{base}/no/such/secret-place").status_code == 404
-    samples, text = scrape(base)
+def test_labels_are_route_templates_never_ids_or_paths(api: httpx.Client) -> None:
+    assert api.get("/documents/some-secret-id").status_code == 404
+    assert api.get("/documents/runbooks/valve.md").status_code == 200
+    assert api.get("/no/such/secret-place").status_code == 404
+    samples, text = scrape(api)
     for leaked in ("some-secret-id", "runbooks", "valve.md", "secret-place"):
         assert leaked not in text
     doc = {"route": "/documents/{document_id}", "method": "GET", "mode": "none"}
@@ -124,33 +110,29 @@ def test_labels_are_route_templates_never_ids_or_paths(base: str) -> None:
     assert value(samples, REQUESTS, route="unmatched", method="GET", mode="none", status="404") >= 1
 
 
-def test_an_unusual_method_does_not_make_a_new_label(base: str) -> None:
-    assert httpx.request("BREW", f"{base}/health").status_code == 405
-    samples, text = scrape(base)
+def test_an_unusual_method_does_not_make_a_new_label(api: httpx.Client) -> None:
+    assert api.request("BREW", "/health").status_code == 405
+    samples, text = scrape(api)
     assert "BREW" not in text
     assert value(samples, REQUESTS, route="/health", method="other", mode="none", status="405") >= 1
 
 
-def test_refusals_before_any_route_are_counted(base: str) -> None:
+def test_refusals_before_any_route_are_counted(api: httpx.Client) -> None:
     """RequestLimits answers 413 and 422 itself; they are still counted, under the route."""
-    before, _ = scrape(base)
-    big = httpx.post(
-        f"{base}/search", content=b"x" * 5000, headers={"content-type": "application/json"}
-    )
+    before, _ = scrape(api)
+    big = api.post("/search", content=b"x" * 5000, headers={"content-type": "application/json"})
     deep = "[" * (DEFAULT_MAX_JSON_DEPTH + 1) + "]" * (DEFAULT_MAX_JSON_DEPTH + 1)
-    nested = httpx.post(
-        f"{base}/search", content=deep, headers={"content-type": "application/json"}
-    )
+    nested = api.post("/search", content=deep, headers={"content-type": "application/json"})
     assert (big.status_code, nested.status_code) == (413, 422)
-    after, _ = scrape(base)
+    after, _ = scrape(api)
     for status in ("413", "422"):
         labels = {"route": "/search", "method": "POST", "mode": "none", "status": status}
         assert value(after, REQUESTS, **labels) - value(before, REQUESTS, **labels) == 1
 
 
-def test_index_gauges_match_health(base: str) -> None:
-    health = httpx.get(f"{base}/health").json()
-    samples, _ = scrape(base)
+def test_index_gauges_match_health(api: httpx.Client) -> None:
+    health = api.get("/health").json()
+    samples, _ = scrape(api)
     assert value(samples, "sounding_index_loaded") == 1
     assert value(samples, "sounding_index_documents") == health["documents"] == 2
     assert value(samples, "sounding_index_chunks") == health["chunks"]
@@ -160,19 +142,18 @@ def test_index_gauges_match_health(base: str) -> None:
         value(
             samples,
             "sounding_build_info",
-            version=httpx.get(f"{base}/openapi.json").json()["info"]["version"],
+            version=api.get("/openapi.json").json()["info"]["version"],
         )
         == 1
     )
 
 
 def test_last_run_gauges_follow_an_ok_then_a_failed_run(tmp_path: Path) -> None:
-    embedder = HashingEmbedder(16)
-    root, settings = build(tmp_path, embedder)
-    with running(create_app(settings, embedder=embedder)) as url:
+    with serve(tmp_path) as served:
+        root, settings, api = served.root, served.settings, served.client
         first = read_last_run(settings.index_dir)
         assert first is not None and first["result"] == "ok"
-        samples, _ = scrape(url)
+        samples, _ = scrape(api)
         assert value(samples, "sounding_last_index_run_success") == 1
         assert value(samples, "sounding_last_index_run_timestamp_seconds") == pytest.approx(
             first["finished_at"]
@@ -184,7 +165,7 @@ def test_last_run_gauges_follow_an_ok_then_a_failed_run(tmp_path: Path) -> None:
             refresh_index([root], settings, HashingEmbedder(32))
         failed = read_last_run(settings.index_dir)
         assert failed is not None and failed["result"] == "failed"
-        samples, text = scrape(url)
+        samples, text = scrape(api)
         assert value(samples, "sounding_last_index_run_success") == 0
         assert value(samples, "sounding_last_index_run_timestamp_seconds") == pytest.approx(
             failed["finished_at"]
@@ -195,9 +176,8 @@ def test_last_run_gauges_follow_an_ok_then_a_failed_run(tmp_path: Path) -> None:
 
 
 def test_without_an_index_the_gauges_say_so(tmp_path: Path) -> None:
-    settings = settings_for(tmp_path / "none")
-    with running(create_app(settings, embedder=HashingEmbedder(16))) as url:
-        samples, _ = scrape(url)
+    with serve(tmp_path, {}) as served:
+        samples, _ = scrape(served.client)
     assert value(samples, "sounding_index_loaded") == 0
     assert not any(
         name.startswith(("sounding_index_documents", "sounding_last_index_run"))
@@ -232,6 +212,6 @@ def test_label_values_come_from_fixed_sets(
     assert (sample.labels["method"], sample.labels["mode"], sample.labels["status"]) == labels
 
 
-def test_metrics_is_listed_in_the_openapi_schema(base: str) -> None:
-    paths = httpx.get(f"{base}/openapi.json").json()["paths"]
+def test_metrics_is_listed_in_the_openapi_schema(api: httpx.Client) -> None:
+    paths = api.get("/openapi.json").json()["paths"]
     assert "/metrics" in paths and "get" in paths["/metrics"]

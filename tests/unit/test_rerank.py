@@ -8,7 +8,6 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import httpx
 import numpy as np
 import pytest
 from sounding.indexer.build import refresh_index
@@ -20,7 +19,7 @@ from sounding.indexer.store import IndexReader
 from sounding.service.app import create_app
 from sounding.service.settings import ServiceSettings
 
-from tests.serving import running
+from tests.serving import serving
 
 
 @pytest.fixture(scope="module")
@@ -101,10 +100,10 @@ def test_bad_reranker_folder_is_a_model_error(tmp_path: Path) -> None:
 
 def test_service_reranks_when_configured(index, tiny_cross_encoder: Path) -> None:
     settings = index.model_copy(update={"reranker_path": tiny_cross_encoder})
-    with running(create_app(settings, embedder=HashingEmbedder(16))) as url:
-        on = httpx.post(f"{url}/search", json={"query": "pump hall", "k": 5, "mode": "dense"})
-        off = httpx.post(
-            f"{url}/search", json={"query": "pump hall", "k": 5, "mode": "dense", "rerank": False}
+    with serving(create_app(settings, embedder=HashingEmbedder(16))) as client:
+        on = client.post("/search", json={"query": "pump hall", "k": 5, "mode": "dense"})
+        off = client.post(
+            "/search", json={"query": "pump hall", "k": 5, "mode": "dense", "rerank": False}
         )
     assert on.status_code == off.status_code == 200
     on_scores = [p["score"] for p in on.json()["results"]]
@@ -114,6 +113,6 @@ def test_service_reranks_when_configured(index, tiny_cross_encoder: Path) -> Non
 
 
 def test_service_refuses_rerank_without_a_reranker(index) -> None:
-    with running(create_app(index, embedder=HashingEmbedder(16))) as url:
-        r = httpx.post(f"{url}/search", json={"query": "pump", "rerank": True})
+    with serving(create_app(index, embedder=HashingEmbedder(16))) as client:
+        r = client.post("/search", json={"query": "pump", "rerank": True})
     assert r.status_code == 422 and "reranker" in r.json()["detail"]
