@@ -25,7 +25,7 @@ def check_mode(mode: str) -> Mode:
     """``mode`` if it is one of MODES, else QueryError naming the choices."""
     if mode not in MODES:
         raise QueryError(f"mode={mode!r} is not one of {', '.join(MODES)}")
-    return mode  # type: ignore[return-value]
+    return mode
 
 
 @dataclass(frozen=True)

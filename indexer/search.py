@@ -226,18 +226,18 @@ class Searcher:
         k, where, max_per_document = query.k, query.where, query.max_per_document
         # Dig deeper than k when passages per document are capped.
         depth = k if max_per_document is None else k * 4 + 32
-        use_reranker = self.reranker is not None and query.rerank is not False
-        if use_reranker:
+        reranker = self.reranker if query.rerank is not False else None
+        if reranker is not None:
             depth = max(depth, self.rerank_depth)
         timings = timings or _UNTIMED
         ranked = self.ranked_chunks(query.text, depth, query.mode, where, timings)
         with timings.stage("fetch"):
             # The filter again, in SQL: a second check behind the filtered rankings.
             rows = self.reader.hit_rows([c for c, _ in ranked], where)
-        if use_reranker:
+        if reranker is not None:
             pool = [(c, rows[c].text) for c, _ in ranked[: self.rerank_depth] if c in rows]
             with timings.stage("rerank"):
-                ranked = _rerank(query.text, pool, self.reranker) + ranked[self.rerank_depth :]
+                ranked = _rerank(query.text, pool, reranker) + ranked[self.rerank_depth :]
         hits: list[Hit] = []
         per_doc: dict[str, int] = {}
         for cid, score in ranked:

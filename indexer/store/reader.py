@@ -103,11 +103,11 @@ class IndexReader:
             with self._pinned.connection() as conn:
                 yield conn
             return
-        conn = getattr(self._local, "conn", None)
-        if conn is None:
-            conn = connect(self._db_path, readonly=True)
-            self._local.conn = conn
-        yield conn
+        local: sqlite3.Connection | None = getattr(self._local, "conn", None)
+        if local is None:
+            local = connect(self._db_path, readonly=True)
+            self._local.conn = local
+        yield local
 
     def _rows(self, sql: str, params: Sequence[object] = ()) -> list[sqlite3.Row]:
         with self._connection() as conn:
