@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import AliasChoices, BaseModel, ConfigDict, Field
 from sounding.indexer.query import Mode
 
 from .filters import FilterFields
@@ -60,7 +60,8 @@ class SearchResponse(BaseModel):
 
 
 class ChunkOut(BaseModel):
-    chunk_id: int
+    # Built from the reader's chunk records, whose id is ``id``.
+    chunk_id: int = Field(validation_alias=AliasChoices("chunk_id", "id"))
     ordinal: int
     trail: list[str]
     text: str

@@ -9,7 +9,7 @@ from __future__ import annotations
 import re
 import threading
 import time
-from dataclasses import replace
+from dataclasses import asdict, replace
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, HTTPException, Path, Request
@@ -83,29 +83,10 @@ def get_document(
     doc = readable(caller, reader.document(document_id))
     if doc is None:
         raise _not_found(document_id)
+    chunks = reader.document_chunks(doc.id)
     return DocumentResponse(
-        id=doc.id,
-        collection=doc.collection,
-        title=doc.title,
-        source=doc.source,
-        kind=doc.kind,
-        modified=doc.modified,
-        content_hash=doc.content_hash,
-        indexed_at=doc.indexed_at,
-        metadata=doc.metadata,
-        groups=list(doc.groups),
-        tags=list(doc.tags),
-        chunks=[
-            ChunkOut(
-                chunk_id=c.id,
-                ordinal=c.ordinal,
-                trail=list(c.trail),
-                text=c.text,
-                page=c.page,
-                tokens=c.tokens,
-            )
-            for c in reader.document_chunks(doc.id)
-        ],
+        **asdict(doc),
+        chunks=[ChunkOut.model_validate(c, from_attributes=True) for c in chunks],
     )
 
 
