@@ -24,7 +24,7 @@ from sounding.indexer.search import Searcher
 from sounding.indexer.settings import IndexSettings
 from sounding.indexer.store import IndexReader
 
-from tests.unit.test_loaders import encrypt_pdf, make_pdf
+from tests.unit.loading import encrypt_pdf, make_pdf
 
 MAX_FILE_BYTES = 4096
 DEEP_LEVELS = 60
@@ -287,6 +287,7 @@ def test_a_second_run_over_the_same_corpus_changes_nothing(indexed) -> None:
 
 
 @pytest.mark.slow
+@pytest.mark.subprocess
 def test_cli_indexes_the_corpus_and_reports_skips_without_a_traceback(tmp_path: Path) -> None:
     root = tmp_path / "corpus"
     root.mkdir()
