@@ -13,12 +13,15 @@ from collections import Counter
 from pathlib import Path
 
 import httpx
+import pytest
 from sounding.indexer.build import refresh_index
 from sounding.indexer.embedding import HashingEmbedder
 from sounding.service.app import create_app
 from sounding.service.settings import ServiceSettings
 
 from tests.serving import running
+
+pytestmark = pytest.mark.slow  # 8 clients, up to 3,200 requests, two re-indexes
 
 CLIENTS = 8
 MAX_REQUESTS_PER_CLIENT = 400

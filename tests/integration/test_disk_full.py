@@ -19,7 +19,7 @@ from sounding.indexer.check import check_index
 from sounding.indexer.embedding import bundled_model_path
 from sounding.indexer.store import IndexReader
 
-pytestmark = pytest.mark.slow
+pytestmark = [pytest.mark.slow, pytest.mark.subprocess]  # the real encoder, in a child
 
 
 def _limit_file_size(limit: int):

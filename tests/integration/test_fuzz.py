@@ -101,6 +101,7 @@ def test_every_operation_is_fuzzed(api_schema) -> None:
     assert listed == set(OPERATIONS)
 
 
+@pytest.mark.slow  # a campaign: MAX_EXAMPLES cases per operation and mode, over real HTTP
 @pytest.mark.parametrize(
     "mode", [GenerationMode.POSITIVE, GenerationMode.NEGATIVE], ids=lambda m: m.value
 )

@@ -20,6 +20,8 @@ from sounding.indexer.embedding import SentenceTransformerEmbedder, bundled_mode
 from sounding.indexer.search import Searcher
 from sounding.indexer.store import IndexReader
 
+pytestmark = [pytest.mark.slow, pytest.mark.subprocess]  # 44 runs of the command
+
 TRIALS = 20
 DOCS = 420
 SECTIONS = 5  # one chunk each: over 2,000 chunks

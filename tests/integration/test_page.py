@@ -28,6 +28,8 @@ from sounding.service.settings import ServiceSettings
 
 from tests.serving import running
 
+pytestmark = [pytest.mark.browser, pytest.mark.slow]
+
 CHROMIUM = Path("/usr/bin/chromium")
 CHROMEDRIVER = Path("/usr/bin/chromedriver")
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"

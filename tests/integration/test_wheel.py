@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-pytestmark = pytest.mark.subprocess
+pytestmark = [pytest.mark.subprocess, pytest.mark.slow]  # pip builds and installs the wheel
 
 REPO = Path(__file__).resolve().parents[2]
 

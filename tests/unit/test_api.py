@@ -116,8 +116,21 @@ def test_health_reports_index_and_model(api: httpx.Client) -> None:
 
 
 def test_openapi_schema_lists_every_endpoint(api: httpx.Client) -> None:
+    """Exactly the service's operations: none missing, none added by accident."""
     paths = api.get("/openapi.json").json()["paths"]
-    assert {"/search", "/documents/{document_id}", "/health"} <= set(paths)
+    assert {path: sorted(ops) for path, ops in paths.items()} == {
+        "/search": ["post"],
+        "/feedback": ["post"],
+        "/documents/{document_id}": ["delete", "get", "put"],
+        "/collections": ["get"],
+        "/context": ["post"],
+        "/health": ["get"],
+        "/metrics": ["get"],
+    }
+    for path, ops in paths.items():
+        for method, op in ops.items():
+            assert op.get("summary") or op.get("description"), (method, path)
+            assert "200" in op["responses"] or "201" in op["responses"], (method, path)
 
 
 def test_service_without_an_index_says_why(tmp_path: Path) -> None:

@@ -128,14 +128,19 @@ def test_window_bounds(starts, budget, overlap, expected) -> None:
 
 
 @given(
-    n=st.integers(1, 400),
+    # n pieces, and a start flag for each of them: only the n flags used are drawn.
+    n_starts=st.integers(1, 400).flatmap(
+        lambda n: st.tuples(st.just(n), st.lists(st.booleans(), min_size=n, max_size=n))
+    ),
     budget=st.integers(1, 80),
     overlap=st.integers(0, 40),
-    starts=st.lists(st.booleans(), min_size=400, max_size=400),
 )
 @settings(max_examples=300, deadline=None)
-def test_window_bounds_cover_progress_and_respect_budget(n, budget, overlap, starts) -> None:
-    bounds = window_bounds(starts[:n], budget, overlap)
+def test_window_bounds_cover_progress_and_respect_budget(
+    n_starts: tuple[int, list[bool]], budget: int, overlap: int
+) -> None:
+    n, starts = n_starts
+    bounds = window_bounds(starts, budget, overlap)
     assert bounds[0][0] == 0 and bounds[-1][1] == n
     for a, b in bounds:
         assert 0 < b - a <= budget

@@ -170,7 +170,12 @@ def test_bad_requests_get_a_422_with_a_reason(service, body, reason: str) -> Non
     assert reason in r.json()["detail"]
 
 
-def test_openapi_lists_context(service) -> None:
+def test_openapi_lists_context_with_its_request_fields(service) -> None:
     client, _ = service
-    paths = client.get("/openapi.json").json()["paths"]
-    assert "/context" in paths
+    schema = client.get("/openapi.json").json()
+    body = schema["paths"]["/context"]["post"]["requestBody"]["content"]["application/json"]
+    name = body["schema"]["$ref"].rsplit("/", 1)[-1]
+    request = schema["components"]["schemas"][name]
+    assert request["required"] == ["query"]
+    fields = {"query", "budget", "unit", "max_per_document", "mode", "source_prefix"}
+    assert fields <= set(request["properties"])

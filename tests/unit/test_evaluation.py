@@ -250,8 +250,10 @@ def test_evaluate_rejects_bad_measures(measure: str, message: str) -> None:
         evaluate(HAND_RUN, QRELS, (measure,))
 
 
-def test_mean_of_nothing_is_empty() -> None:
-    assert mean({}) == {}
+def test_mean_of_nothing_is_empty_and_a_missing_measure_counts_as_zero() -> None:
+    assert mean({}) == {}  # no queries: no division by zero
+    assert mean({"q1": {}, "q2": {}}) == {}
+    assert mean({"q1": {"map": 0.5}, "q2": {}}) == {"map": 0.25}
 
 
 def test_run_from_rankings() -> None:

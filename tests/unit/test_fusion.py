@@ -8,8 +8,11 @@ from hypothesis import strategies as st
 from sounding.indexer.fusion import RRF_K, fusion_depth, reciprocal_rank_fusion, tiered_fusion
 
 
-def test_default_k_is_sixty() -> None:
-    # Cormack, Clarke and Büttcher, SIGIR 2009, use k = 60.
+def test_default_k_is_the_published_sixty() -> None:
+    # Cormack, Clarke and Büttcher, SIGIR 2009, use k = 60: fusing without naming k
+    # scores by 1 / (60 + rank), as the formula with k = 60 does.
+    got = dict(reciprocal_rank_fusion([["a", "b"], ["b"]]))
+    assert got == pytest.approx({"a": 1 / 61, "b": 1 / 62 + 1 / 61})
     assert RRF_K == 60
 
 

@@ -30,13 +30,25 @@ with IndexLock(sys.argv[1]):
 
 @pytest.fixture
 def wiki(tmp_path: Path) -> Path:
+    """30 short pages: what a lock test indexes while the lock is held, or not."""
     root = tmp_path / "wiki"
+    root.mkdir()
+    for i in range(30):
+        (root / f"page-{i}.md").write_text(f"# Page {i}\n\nWords about topic {i}.\n")
+    return root
+
+
+@pytest.fixture
+def long_wiki(tmp_path: Path) -> Path:
+    """30 long pages: many chunks, so a run passes several checkpoints."""
+    root = tmp_path / "long-wiki"
     root.mkdir()
     for i in range(30):
         (root / f"page-{i}.md").write_text(f"# Page {i}\n\nWords about topic {i}.\n" * 200)
     return root
 
 
+@pytest.mark.subprocess
 def test_second_writer_fails_at_once_naming_the_holder(tmp_path: Path, wiki: Path) -> None:
     idx = tmp_path / "idx"
     holder = subprocess.Popen(
@@ -53,6 +65,7 @@ def test_second_writer_fails_at_once_naming_the_holder(tmp_path: Path, wiki: Pat
         holder.wait()
 
 
+@pytest.mark.subprocess
 def test_lock_of_a_killed_process_is_taken_over(tmp_path: Path, wiki: Path) -> None:
     idx = tmp_path / "idx"
     holder = subprocess.Popen(
@@ -76,6 +89,7 @@ def test_lock_is_released_after_a_run_and_on_error(tmp_path: Path, wiki: Path) -
     assert (idx / LOCK_FILE).read_text() == ""
 
 
+@pytest.mark.subprocess
 def test_cli_exits_75_with_one_line_when_locked(tmp_path: Path, wiki: Path) -> None:
     idx = tmp_path / "idx"
     holder = subprocess.Popen(
@@ -94,8 +108,9 @@ def test_cli_exits_75_with_one_line_when_locked(tmp_path: Path, wiki: Path) -> N
 
 
 def test_max_runtime_stops_at_a_checkpoint_and_the_next_run_finishes(
-    tmp_path: Path, wiki: Path
+    tmp_path: Path, long_wiki: Path
 ) -> None:
+    wiki = long_wiki
     settings = IndexSettings(index_dir=tmp_path / "idx", chunk_tokens=64, chunk_overlap=0)
     first = refresh_index([wiki], settings, HashingEmbedder(16), max_runtime=0.0)
     assert first.stopped_early and first.pending_left > 0

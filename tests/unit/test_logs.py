@@ -234,6 +234,7 @@ def test_json_formatter_writes_one_parseable_line() -> None:
     assert abs(stamp.timestamp() - record.created) < 0.001
 
 
+@pytest.mark.subprocess
 @pytest.mark.parametrize("fmt", ["json", "text"])
 def test_log_config_is_valid_for_dictconfig(fmt: str) -> None:
     """Applied in a child process: dictConfig changes the whole process's logging."""
@@ -265,6 +266,7 @@ def test_log_config_is_valid_for_dictconfig(fmt: str) -> None:
         assert "[rid-9] GET /health 200" in lines[0] and lines[1].endswith("started")
 
 
+@pytest.mark.subprocess
 def test_sounding_serve_logs_json_lines_with_request_ids(tmp_path: Path) -> None:
     """The real command: every line on stderr is a JSON object, uvicorn's included."""
     settings = ServiceSettings(index_dir=tmp_path / "index")

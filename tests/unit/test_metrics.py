@@ -212,6 +212,9 @@ def test_label_values_come_from_fixed_sets(
     assert (sample.labels["method"], sample.labels["mode"], sample.labels["status"]) == labels
 
 
-def test_metrics_is_listed_in_the_openapi_schema(api: httpx.Client) -> None:
+def test_metrics_is_listed_in_the_openapi_schema_as_prometheus_text(api: httpx.Client) -> None:
     paths = api.get("/openapi.json").json()["paths"]
-    assert "/metrics" in paths and "get" in paths["/metrics"]
+    assert list(paths["/metrics"]) == ["get"]
+    ok = paths["/metrics"]["get"]["responses"]["200"]["content"]
+    # The content type the endpoint answers with (checked in scrape), as documented.
+    assert list(ok) == ["text/plain; version=0.0.4; charset=utf-8"]

@@ -58,6 +58,7 @@ def index(tmp_path_factory: pytest.TempPathFactory) -> ServiceSettings:
     return settings
 
 
+@pytest.mark.slow  # builds and runs a torch model
 def test_rerank_orders_by_cross_encoder_scores(tiny_cross_encoder: Path) -> None:
     from sentence_transformers import CrossEncoder
 
@@ -71,6 +72,7 @@ def test_rerank_orders_by_cross_encoder_scores(tiny_cross_encoder: Path) -> None
     assert [s for _, s in got] == pytest.approx(sorted(direct.tolist(), reverse=True), rel=1e-5)
 
 
+@pytest.mark.slow  # builds and runs a torch model
 def test_searcher_reranks_only_the_top_candidates(index, tiny_cross_encoder: Path) -> None:
     emb = HashingEmbedder(16)
     plain = Searcher(IndexReader(index.index_dir), emb)
@@ -98,6 +100,7 @@ def test_bad_reranker_folder_is_a_model_error(tmp_path: Path) -> None:
         CrossEncoderReranker(tmp_path)
 
 
+@pytest.mark.slow  # builds and runs a torch model
 def test_service_reranks_when_configured(index, tiny_cross_encoder: Path) -> None:
     settings = index.model_copy(update={"reranker_path": tiny_cross_encoder})
     with serving(create_app(settings, embedder=HashingEmbedder(16))) as client:
