@@ -55,7 +55,7 @@ class SearchResponse(BaseModel):
     k: int
     mode: str
     generation: int = Field(description="Index generation that answered.")
-    took_ms: float = Field(description="Time spent answering, in milliseconds.")
+    elapsed_ms: float = Field(description="Time spent answering, in milliseconds.")
     results: list[Passage]
 
 
@@ -236,7 +236,7 @@ class ContextResponse(BaseModel):
     used: int = Field(description="Tokens (or characters) text takes; never over budget.")
     mode: str
     generation: int = Field(description="Index generation that answered.")
-    took_ms: float
+    elapsed_ms: float = Field(description="Time spent answering, in milliseconds.")
     passages: list[ContextPassageOut]
     text: str = Field(
         description="Ready to paste into a prompt: each passage as '[n] text', then a line "

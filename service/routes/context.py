@@ -79,7 +79,7 @@ def context(
         used=chosen.used,
         mode=body.mode,
         generation=generation.number,
-        took_ms=round((time.perf_counter() - started) * 1000, 3),
+        elapsed_ms=round((time.perf_counter() - started) * 1000, 3),
         passages=[
             ContextPassageOut(
                 number=p.number,

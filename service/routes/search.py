@@ -70,7 +70,7 @@ def search(
             k=body.k,
             mode=body.mode,
             generation=generation.number,
-            took_ms=round((time.perf_counter() - started) * 1000, 3),
+            elapsed_ms=round((time.perf_counter() - started) * 1000, 3),
             results=[Passage.model_validate(h, from_attributes=True) for h in hits],
         ).model_dump_json()
     return timed_json(payload, timings)

@@ -46,7 +46,7 @@ def test_search_returns_ranked_passages_with_their_origin(api: httpx.Client) -> 
     r = api.post("/search", json={"query": "unbolting the flange gate", "k": 3})
     assert r.status_code == 200
     body = r.json()
-    assert body["k"] == 3 and body["generation"] == 1 and body["took_ms"] >= 0
+    assert body["k"] == 3 and body["generation"] == 1 and body["elapsed_ms"] >= 0
     top = body["results"][0]
     assert top["document_id"] == "runbooks/reservoir-valve.md"
     assert top["title"] == "Reservoir valve replacement"
