@@ -66,9 +66,14 @@ def _print_comparison(a: Path, b: Path, qrels: Path, as_json: bool) -> None:
         "  sounding eval --compare dense.run hybrid.run --qrels data/scifact/qrels.tsv"
     ),
 )
-@click.argument("dataset", required=False, metavar="DATASET_DIR")
+@click.argument("dataset", required=False, metavar="[DATASET_DIR]")
 @index_and_model
-@click.option("--mode", type=click.Choice(MODES), default="hybrid", show_default=False)
+@click.option(
+    "--mode",
+    type=click.Choice(MODES),
+    default="hybrid",
+    help="dense (meaning), lexical (BM25 words) or hybrid (both; default)",
+)
 @click.option("--k", "k", type=int, default=100, help="documents ranked per query (default 100)")
 @click.option(
     "--cache",

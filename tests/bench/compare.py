@@ -9,10 +9,12 @@ One process, one corpus, the same judged queries for every system:
   scans every document (brute force). Document vectors are never re-encoded.
 - ``bm25s``: BM25 from the bm25s library, English stopwords and the Snowball English
   stemmer (PyStemmer), title + text, as tests/quality/test_hybrid.py builds it.
-- ``sounding dense|lexical|hybrid``: ``refresh_index`` into a scratch folder (chunks,
-  SQLite, FTS5, FAISS), then ``Searcher``. Built once per ``--precision``.
+- ``sounding dense|lexical|hybrid``: ``evaluate_collection``, which builds the index with
+  ``refresh_index`` (chunks, SQLite, FTS5, FAISS) into the evaluation cache (``--cache``, or
+  a scratch folder) once per ``--precision``, and the configured ``Searcher``.
 
-Indexing time: wall clock from the corpus file to a searchable index, model already loaded.
+Indexing time: wall clock from the corpus file to a searchable index, model already loaded
+(of the run that built it, when the index comes from a kept --cache).
 Latency: one query at a time, warm, every judged query, as a user asks: top 10 (naive and
 bm25s: document ids and scores; sounding: ``Searcher.search(q, 10)`` passages with text).
 Quality: nDCG@10 and Recall@100 (pytrec_eval, means over judged queries) of top-100
@@ -36,16 +38,15 @@ from pathlib import Path
 REPO = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(REPO))
 
-from sounding.indexer.build import refresh_index  # noqa: E402
 from sounding.indexer.embedding import (  # noqa: E402
     SentenceTransformerEmbedder,
     bundled_model_path,
     quiet_offline,
 )
-from sounding.indexer.evaluation import find_corpus, run_from_rankings  # noqa: E402
-from sounding.indexer.experiment import read_judged, score_run  # noqa: E402
-from sounding.indexer.search import MODES, Searcher  # noqa: E402
-from sounding.indexer.settings import IndexSettings  # noqa: E402
+from sounding.indexer.evaluation import find_corpus  # noqa: E402
+from sounding.indexer.experiment import evaluate_collection, read_judged, score_run  # noqa: E402
+from sounding.indexer.search import MODES  # noqa: E402
+from sounding.indexer.settings import IndexSettings, searcher_factory  # noqa: E402
 from sounding.indexer.store import IndexReader  # noqa: E402
 
 DEPTH = 100
@@ -145,27 +146,25 @@ def bm25(records, ids, texts, qrels) -> Row:
     return Row("bm25s", index_s, p50, p99, means["ndcg@10"], means["recall@100"])
 
 
-def sounding(corpus: Path, ids, texts, qrels, precision: str, scratch: Path) -> list[Row]:
+def sounding(folder: Path, texts, precision: str, cache: Path) -> list[Row]:
     embedder = SentenceTransformerEmbedder(precision=precision)  # settings' default batch
     embedder.encode(["warm up"])
-    index_dir = scratch / f"index-{precision}"
-    started = time.perf_counter()
-    refresh_index([corpus], IndexSettings(index_dir=index_dir), embedder)
-    index_s = time.perf_counter() - started
-    searcher = Searcher(IndexReader(index_dir), embedder)
+    settings = IndexSettings()
     rows = []
     for mode in MODES:
-        run = run_from_rankings(ids, searcher.rank_documents(texts, DEPTH, mode=mode))
-        means, _ = score_run(run, qrels)
-        p50, p99 = latencies(texts, lambda q, m=mode: searcher.search(q, 10, mode=m))
+        # The first mode builds the index into the cache; the others rank the same index.
+        result = evaluate_collection(folder, mode, settings, embedder, cache_dir=cache)
+        searcher = searcher_factory(settings, embedder)(IndexReader(result.index.index_dir))
+        p50, p99 = latencies(texts, lambda q, m=mode, s=searcher: s.search(q, 10, mode=m))
+        searcher.reader.close()
         rows.append(
             Row(
                 f"sounding {mode} ({embedder.precision})",
-                index_s,
+                result.index.build_seconds,
                 p50,
                 p99,
-                means["ndcg@10"],
-                means["recall@100"],
+                result.means["ndcg@10"],
+                result.means["recall@100"],
             )
         )
     return rows
@@ -180,6 +179,9 @@ def main() -> None:
         help="folder of BEIR-layout collections (default ../shared/benchmarks)",
     )
     parser.add_argument("--collection", default="scifact")
+    parser.add_argument(
+        "--cache", type=Path, help="evaluation cache: keep sounding's indexes here between runs"
+    )
     parser.add_argument(
         "--precision",
         nargs="+",
@@ -199,9 +201,8 @@ def main() -> None:
 
     baselines = [naive(records, ids, texts, qrels), bm25(records, ids, texts, qrels)]
     with tempfile.TemporaryDirectory(prefix="sounding-compare-") as scratch:
-        ours = [
-            r for p in args.precision for r in sounding(corpus, ids, texts, qrels, p, Path(scratch))
-        ]
+        cache = args.cache or Path(scratch)
+        ours = [r for p in args.precision for r in sounding(folder, texts, p, cache)]
     head = f"{'system':<28}{'index s':>9}{'p50 ms':>8}{'p99 ms':>8}{'nDCG@10':>9}{'R@100':>8}"
     print(head)
     for r in baselines + ours:

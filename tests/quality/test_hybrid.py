@@ -1,23 +1,20 @@
 """Hybrid and lexical ranking on the open IR collections, against a reference BM25.
 
-Indexes come from the session's shared benchmark fixture (conftest.py): each
-collection is encoded once; the modes here only re-rank it.
+Figures come from the session's shared benchmark fixture (conftest.py), which calls
+``evaluate_collection`` over one evaluation cache: each collection is encoded once;
+the modes here only re-rank it.
 """
 
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
 from functools import cache
 from pathlib import Path
 
 import pytest
 import pytrec_eval
-from sounding.indexer.evaluation import mean, read_qrels, read_queries, read_run, run_from_rankings
+from sounding.indexer.evaluation import mean, read_qrels, read_queries, read_run
 from sounding.indexer.experiment import score_run
-from sounding.indexer.search import Searcher
-from sounding.indexer.store import IndexReader
 
 from tests.conftest import BENCHMARKS_DIR
 
@@ -62,45 +59,27 @@ def bm25s_means(name: str) -> dict[str, float]:
     return score_run(run, qrels)[0]
 
 
-_MODES: dict[tuple[str, str], dict[str, float]] = {}
-
-
-def mode_means(benchmark, embedder, mode: str) -> dict[str, float]:
-    key = (benchmark.name, mode)
-    if key not in _MODES:
-        folder = BENCHMARKS_DIR / benchmark.name
-        qrels = read_qrels(folder / "qrels.tsv")
-        queries = read_queries(folder / "queries.jsonl")
-        qids = sorted(q for q in queries if q in qrels)
-        searcher = Searcher(IndexReader(benchmark.index_dir), embedder)
-        run = run_from_rankings(
-            qids, searcher.rank_documents([queries[q] for q in qids], 100, mode=mode)
-        )
-        _MODES[key] = score_run(run, qrels)[0]
-    return _MODES[key]
-
-
-def test_hybrid_beats_both_of_its_parts(benchmark, real_embedder) -> None:
-    hybrid = mode_means(benchmark, real_embedder, "hybrid")["ndcg@10"]
-    dense = mode_means(benchmark, real_embedder, "dense")["ndcg@10"]
+def test_hybrid_beats_both_of_its_parts(benchmark) -> None:
+    hybrid = benchmark.means("hybrid")["ndcg@10"]
+    dense = benchmark.means("dense")["ndcg@10"]
     bm25 = bm25s_means(benchmark.name)["ndcg@10"]
     # Project acceptance: hybrid nDCG@10 >= the better of BM25 (bm25s) and dense.
     assert hybrid >= max(bm25, dense), f"hybrid {hybrid:.4f}, bm25s {bm25:.4f}, dense {dense:.4f}"
 
 
-def test_lexical_mode_is_a_faithful_bm25(benchmark, real_embedder) -> None:
-    lexical = mode_means(benchmark, real_embedder, "lexical")["ndcg@10"]
+def test_lexical_mode_is_a_faithful_bm25(benchmark) -> None:
+    lexical = benchmark.means("lexical")["ndcg@10"]
     bm25 = bm25s_means(benchmark.name)["ndcg@10"]
     # Project acceptance: FTS5 BM25 within 0.03 nDCG@10 of the bm25s reference.
     assert abs(lexical - bm25) <= 0.03, f"lexical {lexical:.4f}, bm25s {bm25:.4f}"
 
 
-def test_scifact_published_anchors(benchmarks, real_embedder) -> None:
+def test_scifact_published_anchors(benchmarks) -> None:
     if "scifact" not in benchmarks.names:
         pytest.skip(f"no scifact collection in {BENCHMARKS_DIR}")
     bench = benchmarks["scifact"]
-    hybrid = mode_means(bench, real_embedder, "hybrid")["ndcg@10"]
-    lexical = mode_means(bench, real_embedder, "lexical")["ndcg@10"]
+    hybrid = bench.means("hybrid")["ndcg@10"]
+    lexical = bench.means("lexical")["ndcg@10"]
     # BEIR paper (Thakur et al., NeurIPS 2021 Datasets and Benchmarks, Table 2): SciFact
     # BM25 nDCG@10 0.665, BM25 + cross-encoder re-ranking 0.688. Project floors: hybrid
     # >= 0.67, lexical (FTS5 BM25) >= 0.64.
@@ -108,33 +87,39 @@ def test_scifact_published_anchors(benchmarks, real_embedder) -> None:
     assert lexical >= 0.64, lexical
 
 
-def test_eval_command_json_and_run_file(benchmarks, tmp_path: Path) -> None:
-    # The smallest collection keeps this subprocess cheap; it reuses the session's index.
+def test_eval_command_json_and_run_file(
+    benchmarks, eval_cache: Path, real_embedder, tmp_path: Path, monkeypatch
+) -> None:
+    from click.testing import CliRunner
+    from sounding.indexer.settings import IndexSettings
+
+    from sounding.cli import cli
+
+    # The smallest collection; `--cache` finds the session's index (same corpus, encoder
+    # and chunk settings), and the session's encoder is lent to the command in-process.
     name = min(benchmarks.names, key=lambda n: (BENCHMARKS_DIR / n / "corpus.jsonl").stat().st_size)
     bench = benchmarks[name]
+    monkeypatch.setattr(IndexSettings, "embedder", lambda self: real_embedder)
     run_file = tmp_path / "hybrid.run"
-    proc = subprocess.run(
+    result = CliRunner().invoke(
+        cli,
         [
-            sys.executable,
-            "-m",
-            "sounding.cli",
             "eval",
             str(BENCHMARKS_DIR / name),
-            "--index",
-            str(bench.index_dir),
+            "--cache",
+            str(eval_cache),
             "--mode",
             "hybrid",
             "--json",
             "--run-out",
             str(run_file),
         ],
-        capture_output=True,
-        text=True,
-        timeout=900,
     )
-    assert proc.returncode == 0, proc.stderr
-    out = json.loads(proc.stdout)
+    assert result.exit_code == 0, result.stderr
+    out = json.loads(result.stdout)
     assert set(out) == {"ndcg@10", "recall@100", "mrr@10", "map", "queries"}
+    assert out["ndcg@10"] == round(bench.means("hybrid")["ndcg@10"], 4)
+    assert len(list(eval_cache.glob(f"{name}-*"))) == 1  # the command built no index of its own
     qrels = read_qrels(BENCHMARKS_DIR / name / "qrels.tsv")
     queries = read_queries(BENCHMARKS_DIR / name / "queries.jsonl")
     assert out["queries"] == sum(q in qrels for q in queries)
