@@ -10,6 +10,7 @@ each (computed by pytrec_eval, see :mod:`indexer.evaluation`).
 from __future__ import annotations
 
 import tempfile
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -23,6 +24,11 @@ from .search import Searcher, check_mode
 from .settings import IndexSettings, searcher_factory
 from .significance import PairedTest, paired_t_test, randomisation_test
 from .store import IndexReader
+
+# progress(stage, done, total): "indexing" counts chunks embedded, "queries" queries ranked.
+Progress = Callable[[str, int, int], None]
+# Queries ranked per batch when progress is shown (one batch otherwise).
+_QUERY_STEP = 32
 
 METRICS: dict[str, str] = {
     "ndcg@10": "ndcg_cut_10",
@@ -48,7 +54,9 @@ class EvalResult:
         return {**{m: round(self.means[m], 4) for m in METRICS}, "queries": len(self.per_query)}
 
 
-def score_run(run: dict[str, dict[str, float]], qrels: dict[str, dict[str, int]]):
+def score_run(
+    run: dict[str, dict[str, float]], qrels: dict[str, dict[str, int]]
+) -> tuple[dict[str, float], dict[str, dict[str, float]]]:
     """(means, per-query values) keyed by the names in METRICS."""
     raw = evaluate(run, qrels, tuple(METRICS.values()))
     per_query = {q: {m: v[t] for m, t in METRICS.items()} for q, v in raw.items()}
@@ -77,6 +85,7 @@ def evaluate_collection(
     cache_dir: Path | None = None,
     index_dir: Path | None = None,
     k: int = 100,
+    progress: Progress | None = None,
 ) -> EvalResult:
     """Index a BEIR-layout folder, rank every judged query in ``mode``, score the ranking.
 
@@ -85,6 +94,8 @@ def evaluate_collection(
     (an entry per corpus content, encoder and chunk settings, built once and reused,
     see :mod:`indexcache`); else a scratch index, thrown away afterwards. The
     searcher is the configured one (:func:`searcher_factory`: rrf_k, re-ranker).
+    ``progress(stage, done, total)`` reports the chunks embedded (stage ``"indexing"``),
+    then the queries ranked (``"queries"``).
     """
     mode = check_mode(mode)
     if k < 1:
@@ -101,20 +112,24 @@ def evaluate_collection(
             reader = IndexReader(index_dir)
             built = CachedIndex(index_dir, None, 0.0, reused=True)
         except IndexMissingError:
-            report, seconds = build_index(find_corpus(dataset_dir), settings, embedder, index_dir)
+            report, seconds = build_index(
+                find_corpus(dataset_dir), settings, embedder, index_dir, _stage(progress)
+            )
             built = CachedIndex(index_dir, report, seconds, reused=False)
             reader = IndexReader(index_dir)
-        return _rank(reader, built, settings, embedder, queries, qrels, mode, k)
+        return _rank(reader, built, settings, embedder, queries, qrels, mode, k, progress)
     corpus = find_corpus(dataset_dir)
     if cache_dir is not None:
-        built = cached_index(corpus, settings, embedder, cache_dir)
+        built = cached_index(corpus, settings, embedder, cache_dir, _stage(progress))
         reader = IndexReader(built.index_dir)
-        return _rank(reader, built, settings, embedder, queries, qrels, mode, k)
+        return _rank(reader, built, settings, embedder, queries, qrels, mode, k, progress)
     with tempfile.TemporaryDirectory(prefix="sounding-eval-") as scratch:
         index = Path(scratch) / "index"
-        report, seconds = build_index(corpus, settings, embedder, index)
+        report, seconds = build_index(corpus, settings, embedder, index, _stage(progress))
         built = CachedIndex(index, report, seconds, reused=False)
-        result = _rank(IndexReader(index), built, settings, embedder, queries, qrels, mode, k)
+        result = _rank(
+            IndexReader(index), built, settings, embedder, queries, qrels, mode, k, progress
+        )
     result.index = None  # the scratch folder is gone
     return result
 
@@ -128,16 +143,25 @@ def _rank(
     qrels: dict[str, dict[str, int]],
     mode: str,
     k: int,
+    progress: Progress | None = None,
 ) -> EvalResult:
     """Rank every query with the configured searcher over ``reader`` (closed after), score."""
     try:
         searcher = searcher_factory(settings, embedder)(reader)
         ids = sorted(queries)
         texts = [queries[q] for q in ids]
-        if searcher.reranker is None:
-            rankings = searcher.rank_documents(texts, k, mode=mode)
-        else:
-            rankings = [_reranked_documents(searcher, text, k, mode) for text in texts]
+        rankings: list[list[tuple[str, float]]] = []
+        step = _QUERY_STEP if progress else max(1, len(texts))
+        for start in range(0, len(texts), step):
+            if progress:
+                progress("queries", start, len(texts))
+            batch = texts[start : start + step]
+            if searcher.reranker is None:
+                rankings += searcher.rank_documents(batch, k, mode=mode)
+            else:
+                rankings += [_reranked_documents(searcher, text, k, mode) for text in batch]
+        if progress:
+            progress("queries", len(texts), len(texts))
     finally:
         reader.close()
     run = run_from_rankings(ids, rankings)
@@ -145,7 +169,16 @@ def _rank(
     return EvalResult(mode=mode, means=means, per_query=per_query, run=run, index=built)
 
 
-def _reranked_documents(searcher: Searcher, text: str, k: int, mode: str):
+def _stage(progress: Progress | None) -> Callable[[int, int], None] | None:
+    """The indexer's chunk progress as the ``"indexing"`` stage of ``progress``."""
+    if progress is None:
+        return None
+    return lambda done, total: progress("indexing", done, total)
+
+
+def _reranked_documents(
+    searcher: Searcher, text: str, k: int, mode: str
+) -> list[tuple[str, float]]:
     """Documents ranked as the service ranks passages with the re-ranker, one per document.
 
     ``rank_documents`` has no re-ranking step; ``search`` re-ranks its top

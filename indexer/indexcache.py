@@ -31,8 +31,10 @@ import os
 import shutil
 import tempfile
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 from .build import RefreshReport, refresh_index
 from .documents import Skipped
@@ -86,17 +88,26 @@ def _file_digest(path: Path | None) -> str:
 
 
 def build_index(
-    corpus: Path, settings: IndexSettings, embedder: Embedder, index_dir: Path
+    corpus: Path,
+    settings: IndexSettings,
+    embedder: Embedder,
+    index_dir: Path,
+    progress: Callable[[int, int], None] | None = None,
 ) -> tuple[RefreshReport, float]:
-    """Index ``corpus`` into ``index_dir`` with the normal indexer; (report, seconds)."""
+    """Index ``corpus`` into ``index_dir`` with the normal indexer; (report, seconds).
+    ``progress(done, total)`` as chunks are embedded."""
     started = time.monotonic()
     build = settings.model_copy(update={"index_dir": Path(index_dir)})
-    report = refresh_index([corpus], build, embedder)
+    report = refresh_index([corpus], build, embedder, progress=progress)
     return report, time.monotonic() - started
 
 
 def cached_index(
-    corpus: Path, settings: IndexSettings, embedder: Embedder, cache_dir: Path
+    corpus: Path,
+    settings: IndexSettings,
+    embedder: Embedder,
+    cache_dir: Path,
+    progress: Callable[[int, int], None] | None = None,
 ) -> CachedIndex:
     """The entry of ``cache_dir`` for this corpus, encoder and settings; built if missing."""
     cache_dir = Path(cache_dir)
@@ -110,7 +121,7 @@ def cached_index(
     _sweep_abandoned(cache_dir, name)
     scratch = Path(tempfile.mkdtemp(prefix=f"{_BUILDING}{name}-{os.getpid()}-", dir=cache_dir))
     try:
-        report, seconds = build_index(corpus, settings, embedder, scratch / "index")
+        report, seconds = build_index(corpus, settings, embedder, scratch / "index", progress)
         meta = {"key": key, "seconds": seconds, "report": report.to_json()}
         (scratch / "build.json").write_text(json.dumps(meta, indent=2), encoding="utf-8")
         try:
@@ -145,7 +156,7 @@ def _read_entry(entry: Path, key: str) -> CachedIndex | None:
     )
 
 
-def _report_from_json(data: dict) -> RefreshReport:
+def _report_from_json(data: dict[str, Any]) -> RefreshReport:
     fields = dict(data)
     fields["skipped"] = [Skipped(s["path"], s["reason"]) for s in data.get("skipped", [])]
     return RefreshReport(**fields)

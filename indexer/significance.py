@@ -90,4 +90,5 @@ def _differences(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     b = np.asarray(b, dtype=np.float64)
     if a.shape != b.shape or a.ndim != 1:
         raise ValueError("a and b must be 1-d arrays of equal length (one value per query)")
-    return b - a
+    difference: np.ndarray = b - a
+    return difference
