@@ -1,12 +1,14 @@
 """``sounding check``: verify that the files of an index agree, and repair what is derived.
 
 Checks: the manifest reads and names an existing vector file of the right
-dimension; every chunk has a vector and every vector a chunk; the FTS5 index
-holds exactly the chunks; every document has chunks; the manifest's counts
-match; SQLite's own integrity check passes; no temporary file is left over.
-Repair rebuilds derived data (the FAISS file, the FTS5 index) from the
-chunk rows, removes leftovers and documents without chunks (the next
-``sounding index`` adds them again), then publishes a new generation.
+dimension; every chunk has a vector and every vector a chunk; the FTS5 tables
+hold exactly the chunks, each in the table of its document's access class;
+every document has chunks; the manifest's counts match; SQLite's own
+integrity check passes; no temporary file is left over. Repair rebuilds
+derived data (the FAISS file, the FTS5 tables) from the chunk rows (and so
+upgrades an index of an older schema), removes leftovers and documents
+without chunks (the next ``sounding index`` adds them again), then publishes
+a new generation.
 """
 
 from __future__ import annotations
@@ -17,9 +19,17 @@ from pathlib import Path
 import numpy as np
 
 from .chunking import ChunkSettings
+from .errors import IndexMismatchError
 from .lock import IndexLock
 from .settings import IndexSettings
-from .store import DATABASE, IndexWriter, Manifest, inspect_database, vectors_filename
+from .store import (
+    DATABASE,
+    SCHEMA_VERSION,
+    IndexWriter,
+    Manifest,
+    inspect_database,
+    vectors_filename,
+)
 from .vectorfile import read_vector_file
 from .vectors import VectorChoice, describe_vectors, index_ids
 
@@ -41,7 +51,15 @@ def check_index(index_dir: Path) -> CheckReport:
     """Verify the index at ``index_dir``; never changes anything."""
     index_dir = Path(index_dir)
     report = CheckReport()
-    manifest = Manifest.read(index_dir)  # missing or unreadable: raised, said as one line
+    try:
+        manifest = Manifest.read(index_dir)  # missing or unreadable: raised, said as one line
+    except IndexMismatchError:
+        old = Manifest.read(index_dir, upgrade=True)  # a schema too old to upgrade: raised
+        report.problems.append(
+            f"the index has schema version {old.schema_version}; `sounding check --repair` "
+            f"upgrades it to {SCHEMA_VERSION} without re-embedding"
+        )
+        return report
     db_path = index_dir / DATABASE
     if not db_path.is_file():
         report.problems.append(f"{DATABASE} is missing")
@@ -56,6 +74,15 @@ def check_index(index_dir: Path) -> CheckReport:
             f"{db.wrong_size_vectors} chunk rows hold a vector of the wrong size"
         )
     _compare(report, "lexical (FTS5) index", chunk_ids, db.lexical_ids)
+    if db.lexical_misplaced:
+        report.problems.append(
+            f"{db.lexical_misplaced} lexical rows are in another access class's table than "
+            "their document's (its groups)"
+        )
+    if db.lexical_broken:
+        report.problems.append(
+            f"lexical tables missing or unreadable: {', '.join(db.lexical_broken)}"
+        )
     if db.documents_without_chunks:
         report.problems.append(f"{db.documents_without_chunks} documents have no chunks")
     generation = db.generation if db.generation is not None else manifest.generation
@@ -130,7 +157,7 @@ def repair_index(index_dir: Path, vectors: VectorChoice | None = None) -> CheckR
     before = check_index(index_dir)
     if before.ok:
         return before
-    manifest = Manifest.read(index_dir)
+    manifest = Manifest.read(index_dir, upgrade=True)  # the writer upgrades an older schema
     chunking = ChunkSettings(manifest.chunking["max_tokens"], manifest.chunking["overlap"])
     with (
         IndexLock(index_dir),

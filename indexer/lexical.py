@@ -9,6 +9,7 @@ plain words (or nothing) and never raise.
 from __future__ import annotations
 
 import re
+from collections.abc import Sequence
 
 # Common English function words (common practice in BM25 retrieval; this list
 # was written from memory). Dropping them keeps OR-queries fast and their
@@ -39,9 +40,12 @@ def query_terms(text: str, *, max_terms: int = 64) -> list[str]:
     return (content or words)[:max_terms]
 
 
+def fts5_match(terms: Sequence[str]) -> str:
+    """An FTS5 MATCH expression matching any of ``terms``, each quoted as one phrase."""
+    return " OR ".join('"' + t.replace('"', '""') + '"' for t in terms)
+
+
 def fts5_query(text: str) -> str | None:
     """An FTS5 MATCH expression matching any of the words of ``text``; None if it has none."""
     terms = query_terms(text)
-    if not terms:
-        return None
-    return " OR ".join('"' + t.replace('"', '""') + '"' for t in terms)
+    return fts5_match(terms) if terms else None

@@ -15,7 +15,7 @@ from functools import cached_property
 
 from .embedding import Embedder, describe
 from .fusion import RRF_K, fusion_depth, tiered_fusion
-from .lexical import fts5_query
+from .lexical import query_terms
 from .query import MODES, Mode, Query, check_mode, make_query
 from .rerank import Reranker
 from .rerank import rerank as _rerank
@@ -139,11 +139,11 @@ class Searcher:
         where: SearchFilter | None = None,
         timings: Timings = _UNTIMED,
     ) -> list[tuple[int, float]]:
-        match = fts5_query(query)
-        if match is None:
+        terms = query_terms(query)
+        if not terms:
             return []
         with timings.stage("lexical"):
-            scores, ids = self.reader.bm25(match, depth, where)
+            scores, ids = self.reader.bm25(terms, depth, where)
         return list(zip(ids.tolist(), scores.tolist(), strict=True))
 
     def ranked_chunks(
@@ -167,7 +167,8 @@ class Searcher:
         dense = [c for c, _ in self._dense([query], pool, where, timings)[0]]
         lexical = [c for c, _ in self._lexical(query, pool, where, timings)]
         with timings.stage("fusion"):
-            tier = fusion_depth(int(self.reader.faiss_index.ntotal))
+            # The size of what the caller may read: chunks hidden from it change nothing.
+            tier = fusion_depth(self.reader.readable_chunks(where))
             return tiered_fusion([dense, lexical], tier, k=self.rrf_k)[:depth]
 
     # -- passages -------------------------------------------------------------

@@ -2,7 +2,8 @@
 
 Modules: :mod:`.format` (file names, schema, manifest, last-run record, the
 model and chunking checks), :mod:`.sqlite` (connections and SQL helpers),
-:mod:`.writer` (:class:`IndexWriter`), :mod:`.reader` (:class:`IndexReader`
+:mod:`.writer` (:class:`IndexWriter`), :mod:`.lexstore` and :mod:`.bm25` (the
+lexical tables, and BM25 over those a caller may read), :mod:`.reader` (:class:`IndexReader`
 and its records), :mod:`.integrity` (what ``sounding check`` reads). The
 FAISS file's life (load or rebuild, keep in step, write) is
 :mod:`indexer.vectorfile`.
@@ -12,7 +13,9 @@ Layout of an index folder (``SCHEMA_VERSION`` in :mod:`.format`)::
     manifest.json          what built the index and which generation is current
     last-run.json          outcome of the last indexing run (for monitoring)
     sounding.db            SQLite: documents, chunks (text, metadata and vector),
-                           chunks_fts (FTS5, BM25 over title + trail + text)
+                           lexical_<id> (FTS5, BM25 over title + trail + text), one
+                           table per access class (distinct groups), listed in
+                           lexical_classes (see :mod:`.lexstore`, :mod:`.bm25`)
     vectors-<gen>.faiss    FAISS index over the chunk vectors, keyed by the chunk
                            ids SQLite assigns: exact (IndexIDMap2(IndexFlatIP)) or,
                            for large collections, IVF,SQ8 (see indexer/vectors.py);
@@ -48,9 +51,10 @@ from .format import (
     write_last_run,
 )
 from .integrity import DatabaseReport, inspect_database
+from .lexstore import lexical_body
 from .reader import ChunkRecord, DocumentRecord, HitRow, IndexReader
 from .sqlite import open_side_database
-from .writer import IndexWriter, lexical_body
+from .writer import IndexWriter
 
 __all__ = [
     "DATABASE",

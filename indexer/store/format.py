@@ -16,9 +16,12 @@ from typing import Any
 from ..chunking import ChunkSettings
 from ..errors import IndexCorruptError, IndexMismatchError, IndexMissingError
 from ..vectorfile import temporary_path
+from .modes import open_owner_only
 from ..vectors import EXACT, VectorPlan
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
+# Older schemas a writer upgrades in place (2: one FTS5 table for every chunk).
+UPGRADABLE = (2,)
 FORMAT = "sounding-index"
 MANIFEST = "manifest.json"
 DATABASE = "sounding.db"
@@ -54,10 +57,11 @@ CREATE TABLE IF NOT EXISTS chunks (
 );
 CREATE INDEX IF NOT EXISTS chunks_document ON chunks(document_id);
 CREATE TABLE IF NOT EXISTS state (key TEXT PRIMARY KEY, value TEXT NOT NULL);
--- BM25 over each chunk's title, heading trail and text; rowid = chunks.id.
--- Porter stemming over unicode61 words, so "restores" matches "restore".
-CREATE VIRTUAL TABLE IF NOT EXISTS chunks_fts USING fts5(
-    body, tokenize = 'porter unicode61 remove_diacritics 2'
+-- BM25 over each chunk's title, heading trail and text: one FTS5 table per access
+-- class (distinct groups), lexical_<id>, listed here (indexer/store/lexstore.py).
+CREATE TABLE IF NOT EXISTS lexical_classes (
+    id INTEGER PRIMARY KEY AUTOINCREMENT,
+    groups TEXT NOT NULL UNIQUE
 );
 """
 
@@ -102,8 +106,11 @@ class Manifest:
         }
 
     @classmethod
-    def read(cls, index_dir: Path) -> Manifest:
-        """Read the manifest of ``index_dir``; IndexMissingError if there is none."""
+    def read(cls, index_dir: Path, *, upgrade: bool = False) -> Manifest:
+        """Read the manifest of ``index_dir``; IndexMissingError if there is none.
+
+        ``upgrade`` also accepts the older schemas a writer upgrades (:data:`UPGRADABLE`).
+        """
         path = index_dir / MANIFEST
         if not path.is_file():
             raise IndexMissingError(
@@ -116,11 +123,17 @@ class Manifest:
             raise IndexCorruptError(f"cannot read {path}: {exc}") from exc
         if data.get("format") != FORMAT:
             raise IndexCorruptError(f"{path} is not a sounding index manifest")
-        if data.get("schema_version") != SCHEMA_VERSION:
+        version = data.get("schema_version")
+        if version != SCHEMA_VERSION and not (upgrade and version in UPGRADABLE):
+            how = (
+                "upgrade it in place, without re-embedding, with `sounding check --repair` "
+                "or the next `sounding index`"
+                if version in UPGRADABLE
+                else "rebuild it with `sounding index --rebuild`"
+            )
             raise IndexMismatchError(
-                f"index at {index_dir} has schema version {data.get('schema_version')}, this "
-                f"sounding reads version {SCHEMA_VERSION}; "
-                "rebuild it with `sounding index --rebuild`"
+                f"index at {index_dir} has schema version {version}, this "
+                f"sounding reads version {SCHEMA_VERSION}; {how}"
             )
         return cls(
             model=data["model"],
@@ -130,6 +143,7 @@ class Manifest:
             chunks=int(data.get("chunks", 0)),
             updated_at=float(data.get("updated_at", 0.0)),
             vectors=VectorPlan.from_json(data.get("vectors")).to_json(),
+            schema_version=int(version),
         )
 
     def write(self, index_dir: Path) -> None:
@@ -140,7 +154,7 @@ class Manifest:
 def atomic_write(path: Path, data: bytes) -> None:
     """Write ``data`` to ``path`` through a temporary file: all of it or none is seen."""
     tmp = temporary_path(path)
-    with open(tmp, "wb") as fh:
+    with open(open_owner_only(tmp), "wb") as fh:  # manifest and last run: owner-only too
         fh.write(data)
         fh.flush()
         os.fsync(fh.fileno())

@@ -13,10 +13,14 @@ from typing import Any
 import faiss
 import numpy as np
 
+from ..access import may_read
 from ..errors import IndexCorruptError
+from ..lexical import fts5_match
 from ..selection import SearchFilter
 from ..vectorfile import load_or_rebuild
 from ..vectors import search_vectors
+from . import lexstore
+from .bm25 import ClassStats, class_stats, fts5_tokens, score
 from .format import DATABASE, Manifest, check_model, vectors_filename
 from .records import (
     CHUNK_COLUMNS,
@@ -158,35 +162,63 @@ class IndexReader:
         k = max(1, min(k, int(self.faiss_index.ntotal) or 1))
         return search_vectors(self.faiss_index, queries, k, selector=selector, allowed=allowed)
 
-    def bm25(
-        self, match: str, k: int, where: SearchFilter | None = None
-    ) -> tuple[np.ndarray, np.ndarray]:
-        """BM25 ranking of the chunks (SQLite FTS5): scores (higher is better) and chunk
-        ids, best first.
+    @cached_property
+    def lexical_classes(self) -> list[ClassStats]:
+        """The access classes of this generation that hold chunks, with their statistics."""
+        with self._connection() as conn:
+            found = [class_stats(conn, i, g) for i, g in lexstore.classes(conn).items()]
+        return [c for c in found if c.rows]
 
-        ``match`` must be a safe FTS5 expression (see :mod:`indexer.lexical`).
-        With ``where``, only chunks of documents it admits are ranked (the
-        condition is part of the query, so the top ``k`` are all admitted).
+    def visible_classes(self, where: SearchFilter | None) -> list[ClassStats]:
+        """The classes whose chunks ``where``'s caller may read (None: every class)."""
+        groups = None if where is None else where.groups
+        return [c for c in self.lexical_classes if may_read(c.groups, groups)]
+
+    def bm25(
+        self, terms: Sequence[str], k: int, where: SearchFilter | None = None
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """BM25 ranking of the chunks for any of ``terms``: scores (higher is better) and
+        chunk ids, best first.
+
+        Only the access classes ``where``'s caller may read are touched, and BM25's
+        statistics are theirs (:mod:`.bm25`): what a caller may not see changes neither
+        the scores nor the work. ``where``'s other conditions apply before the top ``k``.
+        With a single class this is FTS5's own bm25() over its table.
         """
-        # Only whether the filter restricts anything: the admitted ids are not needed here.
-        if where is None or not self._restricts(where):
+        visible = self.visible_classes(where)
+        if not terms or not visible:
+            return np.empty(0, np.float32), np.empty(0, np.int64)
+        if len(visible) > 1:
+            phrases = [fts5_tokens(t) for t in terms]
+            admitted = self.allowed_chunks(where) if where is not None and where.narrows else None
+            with self._connection() as conn:
+                return score(conn, visible, phrases, k, admitted)
+        fts = lexstore.table(visible[0].id)
+        match = fts5_match(terms)
+        if where is None or not where.narrows:
             rows = self._rows(
-                "SELECT rowid, bm25(chunks_fts) FROM chunks_fts WHERE chunks_fts MATCH ? "
-                "ORDER BY bm25(chunks_fts) LIMIT ?",
+                f"SELECT rowid, bm25({fts}) FROM {fts} WHERE {fts} MATCH ? "
+                f"ORDER BY bm25({fts}) LIMIT ?",
                 [match, int(k)],
             )
         else:
             cond, params = where.sql()
             rows = self._rows(
-                "SELECT f.rowid, bm25(chunks_fts) FROM chunks_fts f "
+                f"SELECT f.rowid, bm25({fts}) FROM {fts} f "
                 "JOIN chunks c ON c.id = f.rowid JOIN documents d ON d.id = c.document_id "
-                f"WHERE chunks_fts MATCH ? AND {cond} ORDER BY bm25(chunks_fts) LIMIT ?",
+                f"WHERE {fts} MATCH ? AND {cond} ORDER BY bm25({fts}) LIMIT ?",
                 [match, *params, int(k)],
             )
         # FTS5's bm25() is negative, more negative is better; flip it for callers.
         scores = np.fromiter((-r[1] for r in rows), dtype=np.float32, count=len(rows))
         ids = np.fromiter((r[0] for r in rows), dtype=np.int64, count=len(rows))
         return scores, ids
+
+    def readable_chunks(self, where: SearchFilter | None) -> int:
+        """How many chunks ``where``'s caller may read, whatever else it narrows."""
+        if where is None or where.groups is None or not self.restricted:
+            return int(self.faiss_index.ntotal)
+        return self.visible_counts(SearchFilter(groups=where.groups))[1]
 
     @cached_property
     def restricted(self) -> bool:
@@ -282,12 +314,18 @@ class IndexReader:
                 out[row["id"]] = chunk_record(row)
         return out
 
-    def documents(self, ids: Iterable[str]) -> dict[str, DocumentRecord]:
-        """Document records by id; unknown ids are left out."""
+    def documents(
+        self, ids: Iterable[str], where: SearchFilter | None = None
+    ) -> dict[str, DocumentRecord]:
+        """Document records by id; unknown ids, and those ``where`` does not admit, are
+        left out alike (the condition is in the one query, so both take the same path)."""
+        cond, params = where.sql() if where is not None else ("1", [])
         out: dict[str, DocumentRecord] = {}
         ids = list(dict.fromkeys(ids))
         for part, marks in in_batches(ids):
-            for row in self._rows(f"SELECT * FROM documents WHERE id IN ({marks})", part):
+            for row in self._rows(
+                f"SELECT * FROM documents d WHERE d.id IN ({marks}) AND {cond}", [*part, *params]
+            ):
                 out[row["id"]] = document_record(row)
         return out
 
@@ -310,9 +348,11 @@ class IndexReader:
                 out[hit.chunk_id] = hit
         return out
 
-    def document(self, document_id: str) -> DocumentRecord | None:
-        """One document's record; None when it is not stored."""
-        return self.documents([document_id]).get(document_id)
+    def document(
+        self, document_id: str, where: SearchFilter | None = None
+    ) -> DocumentRecord | None:
+        """One document's record; None when it is not stored or ``where`` does not admit it."""
+        return self.documents([document_id], where).get(document_id)
 
     def document_chunks(self, document_id: str) -> list[ChunkRecord]:
         """A document's chunks in order; empty when it is not stored."""

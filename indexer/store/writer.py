@@ -19,8 +19,19 @@ from ..documents import Document
 from ..errors import IndexMismatchError, IndexMissingError, IndexStoreError
 from ..vectorfile import in_step, read_vector_file, write_vector_file
 from ..vectors import DEFAULT_CHOICE, VectorChoice, describe_vectors
-from .format import DATABASE, SCHEMA, Manifest, check_chunking, check_model, vectors_filename
+from . import lexstore
+from .format import (
+    DATABASE,
+    SCHEMA,
+    SCHEMA_VERSION,
+    Manifest,
+    check_chunking,
+    check_model,
+    vectors_filename,
+)
 from .integrity import WITHOUT_CHUNKS
+from .modes import owner_only_folder
+from .lexstore import lexical_body  # noqa: F401  (re-exported by the package)
 from .sqlite import (
     blob_vector,
     chunk_ids,
@@ -30,16 +41,6 @@ from .sqlite import (
     state_generation,
     vector_blob,
 )
-
-
-def lexical_body(title: str, trail: Sequence[str], text: str) -> str:
-    """What the BM25 index holds for a chunk: the fields the encoder sees.
-
-    A part equal to an earlier one is left out, so a title-only chunk (whose
-    text is its title) does not count each word twice.
-    """
-    parts = [p for p in (title, " > ".join(trail), text) if p]
-    return "\n".join(p for i, p in enumerate(parts) if p not in parts[:i])
 
 
 class IndexWriter:
@@ -63,8 +64,9 @@ class IndexWriter:
         self.index_dir = Path(index_dir)
         self.vector_choice = vectors
         try:
-            # The index holds document text: readable by its owner only.
-            self.index_dir.mkdir(parents=True, exist_ok=True, mode=0o700)
+            # The index holds document text: readable by its owner only, even when the
+            # folder was made before (store/modes.py).
+            owner_only_folder(self.index_dir)
         except OSError as exc:
             raise IndexStoreError(f"cannot create index folder {self.index_dir}: {exc}") from exc
         self.model = model
@@ -76,9 +78,12 @@ class IndexWriter:
         except IndexMissingError:
             previous = None
         except IndexMismatchError:
-            if not rebuild:
-                raise
-            previous, other_schema = None, True
+            if rebuild:
+                previous, other_schema = None, True
+            else:
+                # An older schema this writer can upgrade in place (raises for any other).
+                previous = Manifest.read(self.index_dir, upgrade=True)
+        upgrade = previous is not None and previous.schema_version != SCHEMA_VERSION
         if previous is not None and not rebuild:
             check_model(previous, model, self.index_dir)
             check_chunking(previous, chunking, self.index_dir)
@@ -98,8 +103,12 @@ class IndexWriter:
             # dies, however it dies, leaves the last published generation as it was.
             self.conn.execute("BEGIN IMMEDIATE")
             self._roll_forward()
+            if upgrade:
+                # Schema 2 had one FTS5 table for all chunks; refill the per-class tables
+                # from the chunk rows (no re-embedding). Published by this run.
+                lexstore.rebuild(self.conn)
             if rebuild:
-                self.conn.execute("DELETE FROM chunks_fts")
+                lexstore.drop_all(self.conn)
                 self.conn.execute("DELETE FROM documents")  # chunks go by cascade
         except sqlite3.OperationalError as exc:
             raise IndexStoreError(f"cannot open {db_path} for writing: {exc}") from exc
@@ -127,6 +136,7 @@ class IndexWriter:
                 chunks=chunks,
                 updated_at=time.time(),
                 vectors=described,
+                schema_version=self.previous.schema_version,  # an upgrade is not yet committed
             )
             self.previous.write(self.index_dir)
 
@@ -165,12 +175,26 @@ class IndexWriter:
         return [r[0] for r in self.conn.execute(f"SELECT id {WITHOUT_CHUNKS}")]
 
     def relabel(self, document_id: str, groups: Sequence[str], tags: Sequence[str]) -> None:
-        """Change who may read a document, and its tags, without touching its chunks."""
+        """Change who may read a document, and its tags, without re-embedding its chunks.
+
+        New groups move its chunks' lexical rows to the table of their new class.
+        """
+        stored = dump(groups)
         try:
-            self.conn.execute(
-                "UPDATE documents SET groups = ?, tags = ? WHERE id = ?",
-                [dump(groups), dump(tags), document_id],
-            )
+            with self.db.atomic():
+                row = self.conn.execute(
+                    "SELECT groups FROM documents WHERE id = ?", [document_id]
+                ).fetchone()
+                moved = row is not None and row[0] != stored
+                if moved:
+                    lexstore.drop_documents(self.conn, "?", [document_id])
+                self.conn.execute(
+                    "UPDATE documents SET groups = ?, tags = ? WHERE id = ?",
+                    [stored, dump(tags), document_id],
+                )
+                if moved:
+                    rows = lexstore.document_rows(self.conn, "d.id = ?", [document_id])
+                    lexstore.index_rows(self.conn, rows)
         except sqlite3.Error as exc:
             raise self._write_failed(exc) from exc
 
@@ -222,7 +246,8 @@ class IndexWriter:
                 f"vectors have {vectors.shape[1]} dimensions, index has {self.dimension}"
             )
         with self.db.atomic():
-            self._drop_fts("SELECT id FROM chunks WHERE document_id = ?", [doc.id])
+            # From the class of the groups stored so far, before they change.
+            lexstore.drop_documents(self.conn, "?", [doc.id])
             self.conn.execute("DELETE FROM chunks WHERE document_id = ?", [doc.id])
             self.db.table("documents").upsert(
                 {
@@ -254,10 +279,15 @@ class IndexWriter:
                 for c, v in zip(chunks, vectors, strict=True)
             )
             # The lexical index changes in the same transaction as the chunks.
-            self.conn.executemany(
-                "INSERT INTO chunks_fts (rowid, body) SELECT id, ? FROM chunks "
-                "WHERE document_id = ? AND ordinal = ?",
-                [(lexical_body(doc.title, c.trail, c.text), doc.id, c.ordinal) for c in chunks],
+            ids = dict(
+                self.conn.execute(
+                    "SELECT ordinal, id FROM chunks WHERE document_id = ?", [doc.id]
+                ).fetchall()
+            )
+            lexstore.add_chunks(
+                self.conn,
+                dump(groups),
+                [(ids[c.ordinal], lexical_body(doc.title, c.trail, c.text)) for c in chunks],
             )
 
     def remove(self, document_ids: Iterable[str]) -> int:
@@ -272,29 +302,17 @@ class IndexWriter:
         removed = 0
         with self.db.atomic():
             for part, marks in in_batches(ids):
-                self._drop_fts(f"SELECT id FROM chunks WHERE document_id IN ({marks})", part)
+                lexstore.drop_documents(self.conn, marks, part)
                 removed += self.conn.execute(
                     f"DELETE FROM documents WHERE id IN ({marks})", part
                 ).rowcount
         return removed
 
     def rebuild_lexical(self) -> int:
-        """Refill the FTS5 index from the chunk rows; how many chunks it now holds."""
+        """Refill the lexical tables (one per access class) from the chunk rows; how many
+        chunks they now hold."""
         with self.db.atomic():
-            self.conn.execute("DELETE FROM chunks_fts")
-            rows = self.conn.execute(
-                "SELECT c.id, d.title, c.trail, c.text FROM chunks c "
-                "JOIN documents d ON d.id = c.document_id"
-            ).fetchall()
-            self.conn.executemany(
-                "INSERT INTO chunks_fts (rowid, body) VALUES (?, ?)",
-                [(r[0], lexical_body(r[1], json.loads(r[2]), r[3])) for r in rows],
-            )
-        return len(rows)
-
-    def _drop_fts(self, select_ids: str, params: Sequence[object]) -> None:
-        """Delete the FTS rows of the chunks that ``select_ids`` selects."""
-        self.conn.execute(f"DELETE FROM chunks_fts WHERE rowid IN ({select_ids})", list(params))
+            return lexstore.rebuild(self.conn)
 
     def publish(self) -> Manifest:
         """Publish the run's changes as a new generation.
@@ -315,6 +333,7 @@ class IndexWriter:
         except (OSError, RuntimeError) as exc:
             raise self._write_failed(exc) from exc
         docs = self.conn.execute("SELECT count(*) FROM documents").fetchone()[0]
+        lexstore.prune(self.conn)  # classes no document is in any more
         self.conn.execute(
             "INSERT OR REPLACE INTO state (key, value) VALUES ('generation', ?)",
             [str(generation)],

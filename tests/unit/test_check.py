@@ -53,11 +53,11 @@ DAMAGE: dict[str, tuple[Callable[[Path], None], str]] = {
         "missing or unreadable",
     ),
     "fts row deleted": (
-        lambda i: _sql(i, "DELETE FROM chunks_fts WHERE rowid = (SELECT min(id) FROM chunks)"),
+        lambda i: _sql(i, "DELETE FROM lexical_1 WHERE rowid = (SELECT min(id) FROM chunks)"),
         "lexical (FTS5) index lacks 1 chunks",
     ),
     "fts row extra": (
-        lambda i: _sql(i, "INSERT INTO chunks_fts (rowid, body) VALUES (99999, 'ghost')"),
+        lambda i: _sql(i, "INSERT INTO lexical_1 (rowid, body) VALUES (99999, 'ghost')"),
         "holds 1 entries with no chunk",
     ),
     "chunks of a document gone": (

@@ -303,7 +303,7 @@ def test_check_and_repair_an_ivf_index(tmp_path: Path) -> None:
     # A chunk row gone behind the writer's back: the IVF still holds its vector.
     conn = sqlite3.connect(tmp_path / DATABASE)
     gone = conn.execute("SELECT min(id) FROM chunks").fetchone()[0]
-    conn.execute("DELETE FROM chunks_fts WHERE rowid = ?", [gone])
+    conn.execute("DELETE FROM lexical_1 WHERE rowid = ?", [gone])  # the one access class
     conn.execute("DELETE FROM chunks WHERE id = ?", [gone])
     conn.commit()
     conn.close()
