@@ -1,4 +1,4 @@
-"""Markdown: YAML front matter, heading trails, light inline clean-up."""
+"""Markdown: YAML front matter, heading trails, and CommonMark text without its markup."""
 
 from __future__ import annotations
 
@@ -7,6 +7,8 @@ from dataclasses import dataclass
 from typing import Any
 
 import yaml
+from markdown_it import MarkdownIt
+from markdown_it.tree import SyntaxTreeNode
 
 from ..documents import Section
 from ._common import Parsed, as_tags, json_safe, same_title, tidy_text, title_from_stem
@@ -14,33 +16,16 @@ from ._common import Parsed, as_tags, json_safe, same_title, tidy_text, title_fr
 BAD_FRONT_MATTER = "front matter is not valid YAML; ignored"
 NOT_A_MAPPING = "front matter is not a YAML mapping; ignored"
 
-# Any indentation: fences nested in list items (runbook steps) are indented further.
-_FENCE = re.compile(r"^[ \t]*(?P<fence>`{3,}|~{3,})(?P<info>.*)$")
-_ATX = re.compile(r"^ {0,3}(?P<hashes>#{1,6})(?:[ \t]+(?P<text>.*?))?[ \t]*$")
-_ATX_CLOSING = re.compile(r"(?:^|[ \t]+)#+$")
+# CommonMark, plus the GFM tables and strikethrough most wikis render.
+_PARSER = MarkdownIt("commonmark").enable(["table", "strikethrough"])
 _HEADING_ID = re.compile(r"[ \t]*\{#[^}]*\}$")  # Pandoc / MkDocs "## Title {#anchor}"
-_SETEXT = re.compile(r"^ {0,3}(?P<line>=+|-+)[ \t]*$")
-_THEMATIC_BREAK = re.compile(r"^ {0,3}(?:(?:-[ \t]*){3,}|(?:\*[ \t]*){3,}|(?:_[ \t]*){3,})$")
-# Lines that cannot be the text of a setext heading (a "---" under them is a rule).
-_NOT_PARAGRAPH = re.compile(r"^(?: {4}|\t| {0,3}(?:[-+*]|\d{1,9}[.)])(?:[ \t]|$)| {0,3}[>|])")
-_BLOCKQUOTE = re.compile(r"^ {0,3}(?:> ?)+")
-_TABLE_DELIMITER = re.compile(r"^ {0,3}\|?[ \t]*:?-+:?[ \t]*(?:\|[ \t]*:?-+:?[ \t]*)*\|?[ \t]*$")
-_LINK_DEFINITION = re.compile(r"^ {0,3}\[(?!\^)[^\]]+\]:[ \t]*\S+.*$")
-
-# Link destination: <...>, or text with at most one level of balanced parentheses,
-# then an optional "title". Every repeat is bounded so that lines full of unmatched
-# brackets or markers cost linear, not quadratic, time.
-_DEST = (
-    r"\(\s*(?:<[^>\n]{0,2000}>|(?:[^()\s]|\([^()\s]{0,500}\)){0,2000})"
-    r"(?:\s+(?:\"[^\"\n]*\"|'[^'\n]*'|\([^()\n]*\)))?\s*\)"
-)
-_IMAGE = re.compile(r"!\[([^\]\n]{0,500})\](?:" + _DEST + r"|\[[^\]\n]{0,500}\])")
-_LINK = re.compile(r"\[([^\]\n]{0,500})\](?:" + _DEST + r"|\[[^\]\n]{0,500}\])")
-_AUTOLINK = re.compile(r"<((?:https?|ftp|mailto):[^>\s]*)>")
-_STRONG_STARS = re.compile(r"\*\*(?=\S)(.{1,500}?)(?<=\S)\*\*")
-# "__" is emphasis only at word edges, so snake_case and __dunder__ names inside words stay.
-_STRONG_UNDERSCORES = re.compile(r"(?<!\w)__(?=\S)(.{1,500}?)(?<=\S)__(?!\w)")
-_CODE_SPAN = re.compile(r"(?<!`)(`+)(?!`)(.{1,2000}?)(?<!`)\1(?!`)")
+_COMMENT = re.compile(r"<!--.*?(?:-->|$)", re.DOTALL)
+_SCRIPT = re.compile(r"<(script|style)\b.*?(?:</\1\s*>|$)", re.DOTALL | re.IGNORECASE)
+_TAG = re.compile(r"<[^>]*>")
+# What lists and tables look like in the text that is shown and embedded: no Markdown
+# markers; table cells split by tabs (the page lays such lines out as a table).
+BULLET = "• "
+CELL = "\t"
 
 
 @dataclass(frozen=True)
@@ -98,110 +83,89 @@ def _split_front_matter(text: str, warnings: list[str]) -> tuple[str, dict[Any, 
 
 
 def _tokenise(body: str) -> list[_Heading | str]:
-    """Headings and cleaned text lines of a Markdown body, in order.
+    """Headings and text blocks of a Markdown body, in order, as a reader sees them.
 
-    Fenced code is kept verbatim without its fences; HTML comments, link
-    reference definitions, thematic breaks and table delimiter rows are dropped.
+    The body is parsed as CommonMark (markdown-it-py); blocks are paragraphs,
+    lists, tables, quotes and code, with every markup character gone: emphasis,
+    links and images become their text, list items start with a bullet or their
+    number, table cells are split by tabs, code is kept verbatim without fences.
+    HTML comments and tags are dropped; thematic breaks only end a block.
     """
     out: list[_Heading | str] = []
-    paragraph = 0  # how many of the last lines in ``out`` form a plain paragraph
-    fence: str | None = None
-    in_comment = False
-    for raw in body.split("\n"):
-        if fence is not None:
-            stripped = raw.strip()
-            if stripped.startswith(fence) and not stripped.strip(fence[0]):
-                fence = None
-            else:
-                out.append(raw)
+    for node in SyntaxTreeNode(_PARSER.parse(body)).children:
+        if node.type == "heading":
+            text = _HEADING_ID.sub("", _inline(node)).strip()
+            out.append(_Heading(int(node.tag[1:]), text))
             continue
-        line, in_comment, had_comment = _drop_comments(raw, in_comment)
-        if had_comment and not line.strip():
-            continue  # a line that was only a comment is not a paragraph break
-        m = _FENCE.match(line)
-        if m and not (m["fence"][0] == "`" and "`" in m["info"]):
-            fence = m["fence"]
-            paragraph = 0
-            continue
-        m = _SETEXT.match(line)
-        if m and paragraph:
-            # The paragraph above the underline is the heading text.
-            words = [str(t).strip() for t in out[-paragraph:]]
-            del out[-paragraph:]
-            level = 1 if m["line"][0] == "=" else 2
-            out.append(_Heading(level, " ".join(words)))
-            paragraph = 0
-            continue
-        m = _ATX.match(line)
-        if m:
-            out.append(_Heading(len(m["hashes"]), _heading_text(m["text"] or "")))
-            paragraph = 0
-            continue
-        if not line.strip():
-            out.append("")
-            paragraph = 0
-            continue
-        if (
-            _THEMATIC_BREAK.match(line)
-            or _TABLE_DELIMITER.match(line)
-            and "|" in line
-            or _LINK_DEFINITION.match(line)
-        ):
-            paragraph = 0
-            continue
-        paragraph = 0 if _NOT_PARAGRAPH.match(line) else paragraph + 1
-        out.append(clean_inline(_BLOCKQUOTE.sub("", line)))
+        text = _block(node)
+        if text.strip():
+            out += [text, ""]
     return out
 
 
-def _drop_comments(line: str, in_comment: bool) -> tuple[str, bool, bool]:
-    """``line`` without HTML comment text; the comment state after it; whether it had any."""
-    kept: list[str] = []
-    had = in_comment
-    while True:
-        if in_comment:
-            end = line.find("-->")
-            if end < 0:
-                return "".join(kept), True, True
-            line = line[end + 3 :]
-            in_comment = False
-        start = line.find("<!--")
-        if start < 0:
-            kept.append(line)
-            return "".join(kept), False, had
-        kept.append(line[:start])
-        line = line[start + 4 :]
-        in_comment = had = True
+def _block(node: SyntaxTreeNode) -> str:
+    """The text of one block node (and of the blocks inside it)."""
+    kind = node.type
+    if kind in ("paragraph", "heading"):
+        return _inline(node)
+    if kind in ("fence", "code_block"):
+        return node.content.rstrip("\n")
+    if kind == "html_block":
+        return _html_text(node.content)
+    if kind == "hr":
+        return ""
+    if kind in ("bullet_list", "ordered_list"):
+        return _list(node)
+    if kind == "table":
+        return _table(node)
+    # Block quotes and any other container: their blocks, a blank line apart.
+    return "\n\n".join(t for t in (_block(c) for c in node.children) if t.strip())
 
 
-def _heading_text(raw: str) -> str:
-    """An ATX heading's text without closing #'s, anchors or inline markup."""
-    raw = _ATX_CLOSING.sub("", raw.strip())
-    return clean_inline(_HEADING_ID.sub("", raw)).strip()
+def _list(node: SyntaxTreeNode) -> str:
+    """A list, one item a line: ``• text`` or ``3. text``; nested items indented."""
+    ordered = node.type == "ordered_list"
+    start = int(str(node.attrs.get("start", 1))) if ordered else 1
+    lines: list[str] = []
+    for offset, item in enumerate(node.children):
+        marker = f"{start + offset}{item.markup or '.'} " if ordered else BULLET
+        body = "\n".join(t for t in (_block(c) for c in item.children) if t.strip())
+        first, *rest = body.split("\n")
+        pad = " " * len(marker)
+        lines.append(marker + first)
+        lines += [pad + line if line.strip() else "" for line in rest]
+    return "\n".join(lines)
 
 
-def clean_inline(line: str) -> str:
-    """Links and images to their text, emphasis and code markers removed; code spans verbatim."""
-    parts: list[str] = []
-    pos = 0
-    for m in _CODE_SPAN.finditer(line):
-        parts.append(_clean_prose(line[pos : m.start()]))
-        code = m[2]
-        # CommonMark strips one space each side of a padded code span.
-        if len(code) > 2 and code[0] == code[-1] == " " and code.strip():
-            code = code[1:-1]
-        parts.append(code)
-        pos = m.end()
-    parts.append(_clean_prose(line[pos:]))
-    return "".join(parts)
+def _table(node: SyntaxTreeNode) -> str:
+    """A table, one row a line, cells split by tabs (header row first)."""
+    rows: list[str] = []
+    for part in node.children:  # thead, tbody
+        for row in part.children:
+            cells = (" ".join(_inline(cell).split()) for cell in row.children)
+            rows.append(CELL.join(cells))
+    return "\n".join(rows)
 
 
-def _clean_prose(text: str) -> str:
-    text = _IMAGE.sub(r"\1", text)
-    text = _LINK.sub(r"\1", text)
-    text = _AUTOLINK.sub(r"\1", text)
-    text = _STRONG_STARS.sub(r"\1", text)
-    return _STRONG_UNDERSCORES.sub(r"\1", text)
+def _inline(node: SyntaxTreeNode) -> str:
+    """The text of inline content: markers dropped, links and images as their text."""
+    kind = node.type
+    if kind in ("text", "code_inline"):
+        return node.content
+    if kind == "softbreak":
+        return " "
+    if kind == "hardbreak":
+        return "\n"
+    if kind == "html_inline":
+        return ""  # a tag or a comment: never text a reader sees
+    # inline, paragraph, heading, cells, emphasis, strong, strikethrough, links, images
+    return "".join(_inline(c) for c in node.children)
+
+
+def _html_text(html: str) -> str:
+    """The text of a raw HTML block: comments, scripts, styles and tags dropped."""
+    text = _TAG.sub("", _SCRIPT.sub("", _COMMENT.sub("", html)))
+    return tidy_text("\n".join(line.strip() for line in text.split("\n")))
 
 
 def _sections(tokens: list[_Heading | str], title_h1: _Heading | None) -> list[Section]:
