@@ -33,12 +33,6 @@ class ServiceSettings(IndexSettings):
     reload_check_seconds: float = Field(
         2.0, ge=0, description="How often the service looks for a newer index generation."
     )
-    reranker_path: Path | None = Field(
-        None,
-        description="Local sentence-transformers cross-encoder folder; re-ranks the top "
-        "candidates when set. Off by default: no reranker ships with sounding.",
-    )
-    rerank_depth: int = Field(50, ge=1, le=1000, description="Candidates the reranker sees.")
     log_level: str = Field("info", description="uvicorn log level.")
     log_format: Literal["json", "text"] = Field(
         "json", description="Log lines of `sounding serve`: one JSON object each, or plain text."
@@ -116,14 +110,6 @@ class ServiceSettings(IndexSettings):
                 "be turned off only on loopback (127.0.0.1); unset SOUNDING_REQUIRE_KEYS "
                 "or listen on 127.0.0.1"
             )
-
-    def reranker(self):  # -> CrossEncoderReranker | None
-        """Load the configured cross-encoder, or None when none is configured."""
-        if self.reranker_path is None:
-            return None
-        from sounding.indexer.rerank import CrossEncoderReranker
-
-        return CrossEncoderReranker(self.reranker_path, batch_size=self.batch_size)
 
     def searcher_factory(self, embedder):  # -> Callable[[IndexReader], Searcher]
         """Make searchers over readers with these settings' ranking options.
