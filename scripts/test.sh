@@ -14,4 +14,5 @@ fi
 bash scripts/setup.sh
 .venv/bin/ruff check indexer service sounding tests
 .venv/bin/ruff format --check indexer service sounding tests
+.venv/bin/mypy indexer
 .venv/bin/python -m pytest -ra "$@"
