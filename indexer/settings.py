@@ -2,18 +2,19 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Collection, Mapping
 from pathlib import Path
-from typing import TYPE_CHECKING, Literal
+from typing import TYPE_CHECKING, Any, Literal
 
-from pydantic import Field
+from pydantic import Field, ValidationError
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 from .chunking import ChunkSettings
 from .vectors import DEFAULT_EXACT_BELOW, VectorChoice
 
 if TYPE_CHECKING:  # search and rerank pull in FAISS and torch: imported when used
-    from .embedding import Embedder
+    from .embedding import Embedder, SentenceTransformerEmbedder
+    from .loaders import LoadLimits
     from .rerank import Reranker
     from .search import Searcher
     from .store import IndexReader
@@ -81,6 +82,27 @@ class IndexSettings(BaseSettings):
     max_file_bytes: int = Field(
         50 * 2**20, ge=1, description="Files larger than this are skipped with a reason."
     )
+    # Defaults as in indexer/loaders/_common.py; these bound what one document may cost,
+    # so a few KB of compressed PDF or YAML cannot cost minutes of work or GB of memory.
+    max_document_chars: int = Field(
+        2_000_000,
+        ge=1,
+        description="Most characters of text one document may hold (about a 1,000-page "
+        "book); extraction stops there, and the document is skipped (a push answers 422).",
+    )
+    max_document_chunks: int = Field(
+        2_500,
+        ge=1,
+        description="Most chunks one document may be cut into (with the default chunk "
+        "settings, max_document_chars of prose is about 2,400); over it the document is "
+        "skipped (a push answers 422).",
+    )
+    max_metadata_bytes: int = Field(
+        64 * 1024,
+        ge=1,
+        description="Most bytes of metadata (front matter, corpus fields) one document may "
+        "store, as JSON; every search that returns the document loads it.",
+    )
     vector_index: Literal["auto", "exact", "ivf"] = Field(
         "auto",
         description="FAISS index of the chunk vectors: exact (brute force), ivf (IVF cells "
@@ -110,14 +132,23 @@ class IndexSettings(BaseSettings):
         return ChunkSettings(max_tokens=self.chunk_tokens, overlap=self.chunk_overlap)
 
     @property
+    def load_limits(self) -> LoadLimits:
+        """The per-document limits as the loaders take them."""
+        from .loaders import LoadLimits
+
+        return LoadLimits(
+            max_chars=self.max_document_chars, max_metadata_bytes=self.max_metadata_bytes
+        )
+
+    @property
     def judgments_file(self) -> Path:
         """Where relevance judgments are kept."""
         from .judgments import FILENAME
 
         return self.judgments_path or self.index_dir / FILENAME
 
-    def embedder(self):  # -> SentenceTransformerEmbedder, imported late: torch is slow to load
-        """Load the configured encoder."""
+    def embedder(self) -> SentenceTransformerEmbedder:
+        """Load the configured encoder (imported late: torch is slow to load)."""
         from .embedding import SentenceTransformerEmbedder
 
         return SentenceTransformerEmbedder(
@@ -160,3 +191,44 @@ def searcher_factory(
         )
 
     return make
+
+
+def _expected(error: Mapping[str, Any]) -> str:
+    """What a setting should look like, from one pydantic error (its type and limits)."""
+    kind, ctx = str(error.get("type", "")), error.get("ctx") or {}
+    forms = {
+        "int_parsing": "a whole number",
+        "int_from_float": "a whole number",
+        "float_parsing": "a number",
+        "bool_parsing": "true or false",
+        "path_type": "a path",
+    }
+    if kind in forms:
+        return forms[kind]
+    limits = {
+        "greater_than_equal": "at least {ge}",
+        "greater_than": "more than {gt}",
+        "less_than_equal": "at most {le}",
+        "less_than": "less than {lt}",
+        "string_too_short": "at least {min_length} characters",
+        "literal_error": "one of {expected}",
+    }
+    if kind in limits:
+        return limits[kind].format(**ctx)
+    message = str(error.get("msg", "a valid value"))
+    return message.removeprefix("Value error, ")
+
+
+def settings_problem(exc: ValidationError, given: Collection[str] = ()) -> str:
+    """One line per bad setting, naming its variable (or option), the value and the form
+    it needs, for a ValidationError from building settings; ``given``: values passed in code
+    (names of command-line options) rather than read from the environment."""
+    parts = []
+    for error in exc.errors():
+        loc = error.get("loc") or ("?",)
+        name = str(loc[0])
+        where = f"setting {name}" if name in given else f"SOUNDING_{name.upper()}"
+        value = error.get("input")
+        shown = f"={value!r}" if isinstance(value, (str, int, float)) else ""
+        parts.append(f"{where}{shown} is not valid: expected {_expected(error)}")
+    return "; ".join(parts) + " (fix or unset it)"

@@ -11,7 +11,7 @@ if [ ! -x /usr/bin/chromium ] || [ ! -x /usr/bin/chromedriver ]; then
     $sudo env DEBIAN_FRONTEND=noninteractive apt-get install -y -qq \
         chromium chromium-driver >/dev/null
 fi
-bash scripts/setup.sh
+bash scripts/setup.sh --test
 .venv/bin/ruff check indexer service sounding tests
 .venv/bin/ruff format --check indexer service sounding tests
 .venv/bin/mypy indexer

@@ -9,7 +9,7 @@ import click
 
 from sounding.indexer.errors import SettingsError
 
-from ._common import example, index_and_model, settings
+from ._common import example, index_and_model, settings, stage_bars
 
 MODES = ("dense", "lexical", "hybrid")
 
@@ -130,6 +130,7 @@ def eval_command(
         k=k,
         index_dir=Path(index_dir) if index_dir else None,
         cache_dir=None if index_dir and not cache_dir else config.eval_cache,
+        progress=stage_bars({"indexing": ("indexing", "chunk"), "queries": ("queries", "query")}),
     )
     if run_out:
         write_run(result.run, Path(run_out), tag=f"sounding-{result.mode}")

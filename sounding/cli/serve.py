@@ -13,8 +13,11 @@ from ._common import example, index_and_model, settings
     help="Serve the index over HTTP: search page at /, OpenAPI schema at /openapi.json.",
     epilog=example(
         "example:\n  sounding serve --port 8757\n"
-        "  curl -s localhost:8757/search -H 'content-type: application/json' "
-        '-d \'{"query": "who is on call?", "k": 3}\''
+        "  KEY=$(sounding keys create --name me --scope read)\n"
+        '  curl -s localhost:8757/search -H "Authorization: Bearer $KEY" \\\n'
+        '       -H \'content-type: application/json\' -d \'{"query": "who is on call?", "k": 3}\'\n'
+        "  sounding search 'who is on call?' --server http://127.0.0.1:8757  "
+        "# with SOUNDING_API_KEY=$KEY"
     ),
 )
 @index_and_model

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import os
 import sqlite3
 from pathlib import Path
 
@@ -145,3 +146,26 @@ def test_reindexing_the_unchanged_corpus_embeds_nothing(demo, real_embedder) -> 
     report = refresh_index([DEMO_CORPUS], settings, counting)
     assert counting.calls == 0 and counting.texts == 0
     assert report.unchanged == first.documents and report.chunks == first.chunks
+
+
+@pytest.mark.parametrize("mode", ["hybrid", "dense", "lexical"])
+def test_the_cli_through_the_server_prints_what_it_prints_in_process(
+    demo, base: str, real_embedder, monkeypatch: pytest.MonkeyPatch, mode: str
+) -> None:
+    from click.testing import CliRunner
+    from sounding.indexer.settings import IndexSettings
+
+    from sounding.cli import cli
+
+    settings, _ = demo
+    monkeypatch.setattr(IndexSettings, "embedder", lambda self: real_embedder)
+    for name in [n for n in os.environ if n.startswith("SOUNDING_")]:
+        monkeypatch.delenv(name)
+    for q in QUESTIONS[:5]:
+        common = ["search", q["question"], "-k", "5", "--mode", mode, "--json"]
+        local = CliRunner().invoke(cli, [*common, "--index", str(settings.index_dir)])
+        remote = CliRunner().invoke(cli, [*common, "--server", base])
+        assert local.exit_code == remote.exit_code == 0, (local.stderr, remote.stderr)
+        mine, theirs = json.loads(local.stdout), json.loads(remote.stdout)
+        assert [h["chunk_id"] for h in theirs] == [h["chunk_id"] for h in mine]
+        assert [h["score"] for h in theirs] == pytest.approx([h["score"] for h in mine], abs=1e-5)
