@@ -48,6 +48,18 @@ class Passage(BaseModel):
     trail: list[str] = Field(description="Headings above the passage, outermost first.")
     text: str
     page: int | None = Field(None, description="1-based page, for PDFs.")
+    modified: float = Field(0.0, description="The document's modification time, Unix seconds.")
+    tags: list[str] = Field(default_factory=list, description="The document's tags.")
+    url: str | None = Field(
+        None,
+        description="Where people read the original: the collection's address (setting "
+        "collection_urls) with the document's path, or the source when it is a web address.",
+    )
+    highlights: list[tuple[int, int]] = Field(
+        default_factory=list,
+        description="[start, end) character spans of text holding the query's words, "
+        "whole tokens matched as the lexical ranking matches them (folded, stemmed).",
+    )
 
 
 class SearchResponse(BaseModel):
@@ -69,6 +81,23 @@ class ChunkOut(BaseModel):
     tokens: int
 
 
+class ChunkSpanOut(BaseModel):
+    chunk_id: int
+    start: int = Field(description="Where the chunk's text starts in the section's text.")
+    end: int = Field(description="Where it ends (exclusive).")
+
+
+class SectionOut(BaseModel):
+    trail: list[str] = Field(description="Headings above this text, outermost first.")
+    page: int | None = Field(None, description="1-based page, for PDFs.")
+    text: str
+    chunks: list[ChunkSpanOut]
+    highlights: list[tuple[int, int]] = Field(
+        default_factory=list,
+        description="Spans of text holding the words of the request's `highlight` query.",
+    )
+
+
 class DocumentResponse(BaseModel):
     id: str
     collection: str
@@ -81,7 +110,20 @@ class DocumentResponse(BaseModel):
     metadata: dict[str, Any]
     groups: list[str] = Field(description="Groups that may read it; empty: everyone.")
     tags: list[str]
-    chunks: list[ChunkOut]
+    chunks: list[ChunkOut] = Field(
+        description="The stored windows, in order; consecutive ones repeat their overlap."
+    )
+    url: str | None = Field(
+        None,
+        description="Where people read the original: the collection's address (setting "
+        "collection_urls) with the document's path, its own url (front matter), or the "
+        "source when it is a web address.",
+    )
+    sections: list[SectionOut] = Field(
+        default_factory=list,
+        description="The document's text once (overlapping windows joined), by heading "
+        "trail and page, with each chunk's span: what a reader of the whole page sees.",
+    )
 
 
 class ModelInfo(BaseModel):

@@ -6,7 +6,7 @@ import ipaddress
 from pathlib import Path
 from typing import Literal
 
-from pydantic import Field
+from pydantic import Field, field_validator
 from sounding.indexer.errors import SettingsError
 from sounding.indexer.settings import IndexSettings
 
@@ -73,6 +73,13 @@ class ServiceSettings(IndexSettings):
         description="How long a push waits for a running re-index before "
         "answering 503 with Retry-After.",
     )
+    collection_urls: dict[str, str] = Field(
+        default_factory=dict,
+        description="Where people read each collection, as JSON: collection name to base "
+        'URL, e.g. {"wiki": "https://wiki.example.org/"}. Results of that collection link '
+        "to the base followed by the document's path in the collection; a base holding "
+        "{path} or {stem} (the path without its suffix) is a template instead.",
+    )
     max_json_depth: int = Field(
         32, ge=1, le=1000, description="Deepest nesting of a JSON body accepted; deeper is a 422."
     )
@@ -84,6 +91,14 @@ class ServiceSettings(IndexSettings):
     keys_path: Path | None = Field(
         None, description="SQLite file of API keys; empty means keys.db in the index folder."
     )
+
+    @field_validator("collection_urls")
+    @classmethod
+    def _web_addresses(cls, urls: dict[str, str]) -> dict[str, str]:
+        for name, url in urls.items():
+            if not url.startswith(("https://", "http://")):
+                raise ValueError(f"collection_urls[{name!r}] = {url!r} is not an http(s) address")
+        return urls
 
     @property
     def keys_file(self) -> Path:

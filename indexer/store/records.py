@@ -7,6 +7,8 @@ import sqlite3
 from dataclasses import dataclass
 from typing import Any
 
+from ..display import shown_source
+
 
 @dataclass(frozen=True)
 class ChunkRecord:
@@ -87,16 +89,37 @@ class HitRow:
     ordinal: int = 0  # position in its document; consecutive ordinals are adjacent windows
     tokens: int = 0  # word pieces of the chunk
     kind: str = ""  # markdown, html, pdf, text or corpus
+    modified: float = 0.0  # the document's modification time, Unix seconds
+    tags: tuple[str, ...] = ()  # the document's tags
 
 
 # The columns of a HitRow, in its field order (chunks c joined to documents d).
 HIT_COLUMNS = (
     "c.id, c.document_id, d.collection, d.title, d.source, c.trail, c.text, c.page, "
-    "c.ordinal, c.tokens, d.kind"
+    "c.ordinal, c.tokens, d.kind, d.modified, d.tags"
 )
 
 
 def hit_row(row: sqlite3.Row) -> HitRow:
-    """A row of :data:`HIT_COLUMNS` as a HitRow (the trail is stored as JSON)."""
-    chunk_id, document_id, collection, title, source, trail, *rest = row
-    return HitRow(chunk_id, document_id, collection, title, source, tuple(json.loads(trail)), *rest)
+    """A row of :data:`HIT_COLUMNS` as a HitRow (trail and tags are stored as JSON).
+
+    The source is as readers are shown it (:func:`~indexer.display.shown_source`): a
+    folder's file by its path in the collection, never by the server's absolute path.
+    """
+    chunk_id, document_id, collection, title, source, trail, text, page, *counts = row
+    ordinal, tokens, kind, modified, tags = counts
+    return HitRow(
+        chunk_id,
+        document_id,
+        collection,
+        title,
+        shown_source(document_id, source),
+        tuple(json.loads(trail)),
+        text,
+        page,
+        ordinal,
+        tokens,
+        kind,
+        modified,
+        tuple(json.loads(tags)),
+    )

@@ -9,10 +9,10 @@ from __future__ import annotations
 import re
 import threading
 import time
-from dataclasses import asdict, replace
+from dataclasses import replace
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Depends, HTTPException, Path, Request
+from fastapi import APIRouter, Depends, HTTPException, Path, Query, Request
 from pydantic import ValidationError
 from sounding.indexer.access import parse_groups, parse_tags
 from sounding.indexer.build import PushReport, delete_document, push_document
@@ -22,7 +22,8 @@ from sounding.indexer.loaders import parse_document
 from ..auth import ReadCaller, WriteCaller
 from ..deps import EngineDep, MaybeGenerationDep, ReaderDep, SettingsDep
 from ..filters import readable
-from ..schemas import ChunkOut, DocumentResponse, ErrorResponse, PushRequest, PushResponse
+from ..schemas import DocumentResponse, ErrorResponse, PushRequest, PushResponse
+from ..views import document_view
 
 router = APIRouter(tags=["documents"])
 
@@ -65,6 +66,10 @@ def check_document_id(document_id: str) -> str:
 
 
 DocumentId = Annotated[str, Path(description="The document's id, e.g. runbooks/restart.md.")]
+HighlightQuery = Annotated[
+    str | None,
+    Query(max_length=1000, description="A query whose words to mark in `sections`."),
+]
 
 
 def _not_found(document_id: str) -> HTTPException:
@@ -77,17 +82,23 @@ def _not_found(document_id: str) -> HTTPException:
     responses={404: {"model": ErrorResponse}, 503: {"model": ErrorResponse}},
 )
 def get_document(
-    document_id: DocumentId, reader: ReaderDep, caller: ReadCaller
+    document_id: DocumentId,
+    reader: ReaderDep,
+    caller: ReadCaller,
+    settings: SettingsDep,
+    highlight: HighlightQuery = None,
 ) -> DocumentResponse:
-    """A document by id (its path relative to the indexed folder, or its corpus ``_id``)."""
+    """A document by id (its path relative to the indexed folder, or its corpus ``_id``).
+
+    ``sections`` has its text once, with each chunk's span; ``highlight`` marks a query's
+    words there, as ``/search`` marks them in passages.
+    """
     doc = readable(caller, reader.document(document_id))
     if doc is None:
         raise _not_found(document_id)
     chunks = reader.document_chunks(doc.id)
-    return DocumentResponse(
-        **asdict(doc),
-        chunks=[ChunkOut.model_validate(c, from_attributes=True) for c in chunks],
-    )
+    overlap = reader.manifest.chunking.get("overlap")
+    return document_view(doc, chunks, settings.collection_urls, highlight, overlap)
 
 
 async def _push_body(request: Request) -> tuple[PushRequest, bytes, str]:

@@ -12,7 +12,8 @@ from ..auth import ReadCaller
 from ..deps import GenerationDep, SettingsDep
 from ..filters import search_filter
 from ..metrics import record_mode
-from ..schemas import ErrorResponse, Passage, SearchRequest, SearchResponse
+from ..schemas import ErrorResponse, SearchRequest, SearchResponse
+from ..views import passages
 
 log = logging.getLogger("sounding.service")
 
@@ -71,6 +72,6 @@ def search(
             mode=body.mode,
             generation=generation.number,
             elapsed_ms=round((time.perf_counter() - started) * 1000, 3),
-            results=[Passage.model_validate(h, from_attributes=True) for h in hits],
+            results=passages(hits, body.query, settings.collection_urls),
         ).model_dump_json()
     return timed_json(payload, timings)
