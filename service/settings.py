@@ -88,6 +88,12 @@ class ServiceSettings(IndexSettings):
         description="Every endpoint but /health needs an API key. May be false only when the "
         "service listens on loopback: then callers without a key see unrestricted documents.",
     )
+    timing_header: bool = Field(
+        False,
+        description="Send every caller the Server-Timing header of /search (milliseconds per "
+        "stage). Off: only admin keys get it, since a stage's time can tell whether a word "
+        "occurs in pages the caller may not read. The debug log has the stages either way.",
+    )
     keys_path: Path | None = Field(
         None, description="SQLite file of API keys; empty means keys.db in the index folder."
     )

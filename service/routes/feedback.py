@@ -6,7 +6,7 @@ from fastapi import APIRouter, HTTPException
 
 from ..auth import ReadCaller
 from ..deps import JudgmentsDep, ReaderDep
-from ..filters import readable
+from ..filters import caller_filter
 from ..schemas import ErrorResponse, FeedbackRequest, FeedbackResponse
 
 router = APIRouter(tags=["feedback"])
@@ -25,10 +25,11 @@ def feedback(
     if body.document_id is None and body.chunk_id is None:
         raise HTTPException(422, "name the judged result: document_id or chunk_id")
     document_id = body.document_id
+    # The caller's rule is inside each lookup's one query, so an id the caller may not
+    # read and one that does not exist take the same path to the same 404.
+    where = caller_filter(caller)
     if body.chunk_id is not None:
-        chunk = reader.chunks([body.chunk_id]).get(body.chunk_id)
-        if chunk is not None and readable(caller, reader.document(chunk.document_id)) is None:
-            chunk = None  # a passage the caller may not read is as good as absent
+        chunk = reader.hit_rows([body.chunk_id], where).get(body.chunk_id)
         if chunk is None:
             raise HTTPException(404, f"no chunk with id {body.chunk_id} in the index")
         if document_id is not None and document_id != chunk.document_id:
@@ -37,7 +38,7 @@ def feedback(
             )
         document_id = chunk.document_id
     assert document_id is not None
-    if readable(caller, reader.document(document_id)) is None:
+    if reader.document(document_id, where) is None:
         raise HTTPException(404, f"no document with id {document_id!r} in the index")
     # The judge is the key's name unless the body names a person (a bot judging for one).
     user = body.user or (None if caller.anonymous else caller.name)

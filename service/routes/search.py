@@ -18,15 +18,17 @@ from ..views import passages
 log = logging.getLogger("sounding.service")
 
 
-def timed_json(payload: str, timings: Timings) -> Response:
-    """A JSON response carrying where the time went, in a Server-Timing header.
+def timed_json(payload: str, timings: Timings, *, send: bool) -> Response:
+    """A JSON response; with ``send``, where the time went, in a Server-Timing header.
 
-    Server-Timing (W3C Server Timing) lets a benchmark or a browser's
-    developer tools read the breakdown; the same goes to the debug log.
+    Server-Timing (W3C Server Timing) lets a benchmark or a browser's developer tools
+    read the breakdown; the debug log always gets it. Only for admin keys (or with the
+    timing_header setting): a stage's time is a side channel on what others may read.
     """
     header = ", ".join(f"{name};dur={ms:.3f}" for name, ms in timings.ms.items())
     log.debug("search stages (ms): %s", header)
-    return Response(payload, media_type="application/json", headers={"Server-Timing": header})
+    headers = {"Server-Timing": header} if send else None
+    return Response(payload, media_type="application/json", headers=headers)
 
 
 router = APIRouter(tags=["search"])
@@ -46,8 +48,9 @@ def search(
 ) -> Response:
     """Rank passages by meaning; the best first.
 
-    The ``Server-Timing`` header gives the milliseconds of each stage
-    (encode, dense, lexical, fusion, fetch, serialise).
+    For admin keys (or with the ``timing_header`` setting) the ``Server-Timing``
+    header gives the milliseconds of each stage (encode, dense, lexical, fusion,
+    fetch, serialise).
     """
     record_mode(request, body.mode)
     started = time.perf_counter()
@@ -74,4 +77,4 @@ def search(
             elapsed_ms=round((time.perf_counter() - started) * 1000, 3),
             results=passages(hits, body.query, settings.collection_urls),
         ).model_dump_json()
-    return timed_json(payload, timings)
+    return timed_json(payload, timings, send=settings.timing_header or caller.may("admin"))
