@@ -19,16 +19,21 @@ Groups come from, in order of precedence:
 
 3. otherwise none: unrestricted.
 
-Invalid groups fail closed: a document whose ``groups`` cannot be read is
-skipped with a reason, never indexed as readable by everyone.
+Invalid groups fail closed: a document whose ``groups`` cannot be read with
+certainty (malformed, blank, or under a near-miss key such as ``Groups``) is
+skipped with a reason, never indexed as readable by everyone. Rules match ids
+and collections after Unicode compatibility normalisation and case folding
+(NFKC_Casefold), so ``HR/pay.md`` and a fullwidth ``ｈｒ/pay.md`` fall under
+``under: hr/`` too.
 """
 
 from __future__ import annotations
 
 import json
 import re
+import unicodedata
 from collections.abc import Iterable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -36,6 +41,13 @@ from .errors import LoadError, SettingsError
 
 GROUP_PATTERN = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")
 _GROUP_HELP = "letters, digits, '.', '_' or '-', starting with a letter or digit, at most 64"
+_NOT_INDEXED = "the document is not indexed until it is fixed"
+
+
+def fold(text: str) -> str:
+    """``text`` as rules compare it: NFKC, case-folded, NFKC again (Unicode's
+    NFKC_Casefold, approximately), so case and compatibility forms cannot slip past."""
+    return unicodedata.normalize("NFKC", unicodedata.normalize("NFKC", text).casefold())
 
 
 def parse_groups(value: Any, where: str) -> tuple[str, ...]:
@@ -78,11 +90,19 @@ class AccessRule:
     under: str
     groups: tuple[str, ...]
     collection: str | None = None
+    _under: str = field(init=False, repr=False, compare=False)
+    _collection: str | None = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "_under", fold(self.under))
+        object.__setattr__(
+            self, "_collection", None if self.collection is None else fold(self.collection)
+        )
 
     def matches(self, collection: str, document_id: str) -> bool:
-        if self.collection is not None and self.collection != collection:
+        if self._collection is not None and self._collection != fold(collection):
             return False
-        return document_id.startswith(self.under)
+        return fold(document_id).startswith(self._under)
 
 
 @dataclass(frozen=True)
@@ -160,10 +180,7 @@ class AccessRules:
         Raises LoadError when the document's own ``groups`` are invalid, so
         the indexer skips it rather than publish it to everyone.
         """
-        try:
-            own = parse_groups(metadata.get("groups"), "front matter")
-        except ValueError as exc:
-            raise LoadError(f"{exc}; the document is not indexed until it is fixed") from exc
+        own = own_groups(metadata)
         if own:
             return own
         groups: tuple[str, ...] = ()
@@ -171,6 +188,25 @@ class AccessRules:
             if rule.matches(collection, document_id):
                 groups = rule.groups
         return groups
+
+
+def own_groups(metadata: dict[str, Any]) -> tuple[str, ...]:
+    """The groups a document names itself; LoadError when they cannot be read with
+    certainty: malformed, present but blank, or under a near-miss key (``Groups``)."""
+    for key in metadata:
+        if key != "groups" and fold(str(key)).strip() in ("groups", "group"):
+            raise LoadError(
+                f"metadata key {key!r} is not read; write it as 'groups'; {_NOT_INDEXED}"
+            )
+    value = metadata.get("groups")
+    if "groups" in metadata and (value is None or isinstance(value, str) and not value.strip()):
+        raise LoadError(
+            f"'groups' is present but empty; name the groups (or write [] for none); {_NOT_INDEXED}"
+        )
+    try:
+        return parse_groups(value, "front matter")
+    except ValueError as exc:
+        raise LoadError(f"{exc}; {_NOT_INDEXED}") from exc
 
 
 def may_read(document_groups: Iterable[str], caller_groups: frozenset[str] | None) -> bool:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -16,67 +16,16 @@ from .embedding import Embedder, describe
 from .errors import IndexLockedError, LoadError, SettingsError, SoundingError
 from .loaders import iter_root
 from .lock import IndexLock
+from .reports import PushReport, RefreshReport
 from .settings import IndexSettings
 from .store import IndexWriter, write_last_run
+
+__all__ = ["PushReport", "RefreshReport", "delete_document", "push_document", "refresh_index"]
 
 # Documents are embedded and stored in groups of about this many chunks: big
 # enough for full encoder batches, small enough to bound memory; a group's end
 # is a checkpoint where --max-runtime may stop the run.
 _GROUP_CHUNKS = 512
-
-
-@dataclass
-class RefreshReport:
-    """What one ``sounding index`` run did."""
-
-    added: list[str] = field(default_factory=list)
-    updated: list[str] = field(default_factory=list)
-    removed: list[str] = field(default_factory=list)
-    unchanged: int = 0
-    skipped: list[Skipped] = field(default_factory=list)
-    chunks_embedded: int = 0
-    chunks_reused: int = 0
-    generation: int = 0
-    documents: int = 0
-    chunks: int = 0
-    seconds: float = 0.0
-    stopped_early: bool = False  # max_runtime reached; the rest waits for the next run
-    pending_left: int = 0
-    lock_taken_over: bool = False  # the previous run died holding the lock
-
-    def summary(self) -> str:
-        """One line of counts."""
-        tail = ""
-        if self.stopped_early:
-            tail = (
-                f"; stopped at the time limit with {self.pending_left} documents left "
-                "for the next run"
-            )
-        return (
-            f"added {len(self.added)}, updated {len(self.updated)}, removed {len(self.removed)}, "
-            f"unchanged {self.unchanged}, skipped {len(self.skipped)}; "
-            f"index now holds {self.documents} documents in {self.chunks} chunks "
-            f"(generation {self.generation}, {self.chunks_embedded} chunks embedded, "
-            f"{self.chunks_reused} reused, {self.seconds:.1f} s){tail}"
-        )
-
-    def to_json(self) -> dict[str, object]:
-        return {
-            "added": self.added,
-            "updated": self.updated,
-            "removed": self.removed,
-            "unchanged": self.unchanged,
-            "skipped": [{"path": s.path, "reason": s.reason} for s in self.skipped],
-            "chunks_embedded": self.chunks_embedded,
-            "chunks_reused": self.chunks_reused,
-            "generation": self.generation,
-            "documents": self.documents,
-            "chunks": self.chunks,
-            "seconds": round(self.seconds, 3),
-            "stopped_early": self.stopped_early,
-            "pending_left": self.pending_left,
-            "lock_taken_over": self.lock_taken_over,
-        }
 
 
 def collection_name(root: Path) -> str:
@@ -95,6 +44,16 @@ class _Pending:
     is_new: bool
     groups: tuple[str, ...] = ()
     tags: tuple[str, ...] = ()
+
+
+def too_many_chunks(chunks: list[Chunk], settings: IndexSettings) -> str | None:
+    """Why ``chunks`` are too many to embed for one document, or None."""
+    if len(chunks) <= settings.max_document_chunks:
+        return None
+    return (
+        f"cut into {len(chunks)} chunks, over the limit of {settings.max_document_chunks} "
+        "(setting max_document_chunks)"
+    )
 
 
 def labels_of(
@@ -195,7 +154,9 @@ def _refresh(
         pending: list[_Pending] = []
         for root in roots:
             coll = collection or collection_name(root)
-            for item in iter_root(root, max_file_bytes=settings.max_file_bytes):
+            for item in iter_root(
+                root, max_file_bytes=settings.max_file_bytes, limits=settings.load_limits
+            ):
                 if isinstance(item, Skipped):
                     report.skipped.append(item)
                     continue
@@ -210,6 +171,7 @@ def _refresh(
                     report.skipped.append(Skipped(item.id, str(exc)))
                     continue
                 seen[item.id] = str(root)
+                report.warn(item)
                 if known.get(item.id) == (coll, item.content_hash):
                     if labels.get(item.id) == (groups, tags):
                         report.unchanged += 1
@@ -219,8 +181,10 @@ def _refresh(
                         report.updated.append(item.id)
                     continue
                 chunks = chunk_document(item, embedder.tokenizer, chunking)
-                if not chunks:
-                    report.skipped.append(Skipped(item.id, "no text"))
+                problem = "no text" if not chunks else too_many_chunks(chunks, settings)
+                if problem:
+                    # Not indexable now: a version stored before is removed with the gone.
+                    report.skipped.append(Skipped(item.id, problem))
                     seen.pop(item.id)
                     continue
                 pending.append(_Pending(item, coll, chunks, item.id not in known, groups, tags))
@@ -281,17 +245,6 @@ def _embed_and_store(
     return sum(len(p.chunks) for p in group)
 
 
-@dataclass
-class PushReport:
-    """What one pushed change did."""
-
-    document_id: str
-    action: str  # "added", "updated", "unchanged" or "removed"
-    chunks: int = 0
-    chunks_embedded: int = 0
-    generation: int = 0
-
-
 def _locked(index_dir: Path, wait_seconds: float) -> IndexLock:
     """The index lock, waiting up to ``wait_seconds`` for a running re-index to finish."""
     deadline = time.monotonic() + wait_seconds
@@ -332,6 +285,8 @@ def push_document(
     chunks = chunk_document(doc, embedder.tokenizer, chunking)
     if not chunks:
         raise LoadError("no text")
+    if problem := too_many_chunks(chunks, settings):
+        raise LoadError(problem)
     with (
         _locked(settings.index_dir, wait_seconds),
         IndexWriter(settings.index_dir, describe(embedder), chunking) as writer,

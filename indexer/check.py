@@ -30,6 +30,7 @@ from .store import (
     inspect_database,
     vectors_filename,
 )
+from .store.modes import loose_modes, tighten_folder
 from .vectorfile import read_vector_file
 from .vectors import VectorChoice, describe_vectors, index_ids
 
@@ -51,6 +52,12 @@ def check_index(index_dir: Path) -> CheckReport:
     """Verify the index at ``index_dir``; never changes anything."""
     index_dir = Path(index_dir)
     report = CheckReport()
+    loose = loose_modes(index_dir)
+    if loose:  # the index holds document text; another local account could read it
+        report.problems.append(
+            f"readable by other accounts: {', '.join(loose)}; the folder should be 0700 "
+            "and its files 0600 (`sounding check --repair` tightens them)"
+        )
     try:
         manifest = Manifest.read(index_dir)  # missing or unreadable: raised, said as one line
     except IndexMismatchError:
@@ -154,8 +161,12 @@ def repair_index(index_dir: Path, vectors: VectorChoice | None = None) -> CheckR
     index_dir = Path(index_dir)
     if vectors is None:
         vectors = IndexSettings().vector_choice
+    # Modes first: tightening them needs no rebuild, and the check after it shows the rest.
+    tightened = tighten_folder(index_dir) if Path(index_dir).is_dir() else 0
+    modes = [f"made {tightened} files and folders owner-only"] if tightened else []
     before = check_index(index_dir)
     if before.ok:
+        before.repaired = modes
         return before
     manifest = Manifest.read(index_dir, upgrade=True)  # the writer upgrades an older schema
     chunking = ChunkSettings(manifest.chunking["max_tokens"], manifest.chunking["overlap"])
@@ -177,5 +188,5 @@ def repair_index(index_dir: Path, vectors: VectorChoice | None = None) -> CheckR
         published = writer.publish()
         done.append(f"published generation {published.generation} with {published.chunks} vectors")
     after = check_index(index_dir)
-    after.repaired = done
+    after.repaired = modes + done
     return after

@@ -16,6 +16,7 @@ from pathlib import Path
 
 from .errors import SettingsError
 from .store import open_side_database
+from .store.modes import FOLDER_MODE, open_owner_only
 
 FILENAME = "judgments.db"
 GRADES = range(0, 4)  # 0 not relevant … 3 perfectly relevant (TREC-style graded judgments)
@@ -123,11 +124,13 @@ class JudgmentStore:
         if not qrels:
             raise SettingsError(f"no judgments in {self.path} yet; send some with POST /feedback")
         out_dir = Path(out_dir)
-        out_dir.mkdir(parents=True, exist_ok=True)
-        with open(out_dir / "queries.jsonl", "w", encoding="utf-8") as fh:
+        # People's queries and restricted ids: owner-only files; a folder made here is
+        # owner-only too (an existing one is the user's and keeps its mode).
+        out_dir.mkdir(parents=True, exist_ok=True, mode=FOLDER_MODE)
+        with open(open_owner_only(out_dir / "queries.jsonl"), "w", encoding="utf-8") as fh:
             for qid in sorted(qrels):
                 fh.write(json.dumps({"_id": qid, "text": queries[qid]}, ensure_ascii=False) + "\n")
-        with open(out_dir / "qrels.tsv", "w", encoding="utf-8") as fh:
+        with open(open_owner_only(out_dir / "qrels.tsv"), "w", encoding="utf-8") as fh:
             fh.write("query-id\tcorpus-id\tscore\n")
             for qid in sorted(qrels):
                 for doc, grade in sorted(qrels[qid].items()):

@@ -18,6 +18,7 @@ from pathlib import Path
 from typing import Any, TextIO
 
 from .errors import IndexLockedError, IndexStoreError
+from .store.modes import FILE_MODE, owner_only_folder, tighten
 
 LOCK_FILE = ".lock"
 
@@ -42,8 +43,11 @@ class IndexLock:
 
     def acquire(self) -> IndexLock:
         try:
-            self.path.parent.mkdir(parents=True, exist_ok=True, mode=0o700)
-            fh = open(self.path, "a+", encoding="utf-8")  # noqa: SIM115 - held until release()
+            # The first thing a run touches: the folder is made (or tightened) owner-only here.
+            owner_only_folder(self.path.parent)
+            fd = os.open(self.path, os.O_RDWR | os.O_CREAT, FILE_MODE)
+            tighten(self.path)
+            fh = open(fd, "a+", encoding="utf-8")  # noqa: SIM115 - held until release()
         except OSError as exc:
             raise IndexStoreError(f"cannot create lock file {self.path}: {exc}") from exc
         try:

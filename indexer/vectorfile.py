@@ -60,6 +60,7 @@ def write_vector_file(index: faiss.Index, path: Path) -> None:
     tmp = temporary_path(path)
     try:
         faiss.write_index(index, str(tmp))
+        os.chmod(tmp, 0o600)  # vectors derive from document text: owner-only (store/modes.py)
         with open(tmp, "rb") as fh:
             os.fsync(fh.fileno())
         os.replace(tmp, path)

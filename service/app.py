@@ -19,7 +19,7 @@ from sounding.indexer.judgments import JudgmentStore
 from .auth import open_keys, require
 from .engine import Engine
 from .limits import RequestLimits
-from .metrics import RequestObserver, ServiceMetrics
+from .metrics import RequestObserver, ServiceMetrics, route_template
 from .routes import collections, context, documents, feedback, health, page, search
 from .routes import metrics as metrics_route
 from .settings import ServiceSettings
@@ -112,8 +112,13 @@ def create_app(
     @app.exception_handler(Exception)
     async def unexpected(request: Request, exc: Exception) -> JSONResponse:
         # A bug, not a bad request: the traceback goes to the log, never to the client.
+        # The route template, never the path: a document id may name a restricted page
+        # (service/logs.py: no raw paths at info level or above).
         log.error(
-            "unexpected error answering %s %s", request.method, request.url.path, exc_info=exc
+            "unexpected error answering %s %s",
+            request.method,
+            route_template(request.scope),
+            exc_info=exc,
         )
         return JSONResponse(status_code=500, content={"detail": INTERNAL_ERROR})
 

@@ -203,6 +203,11 @@ class PushResponse(BaseModel):
     chunks: int
     chunks_embedded: int
     generation: int = Field(description="Generation that holds the change; served from now on.")
+    warnings: list[str] = Field(
+        default_factory=list,
+        description="What a person should know about the document as indexed "
+        "(invalid UTF-8 replaced, PDF pages without text, ...).",
+    )
 
 
 class FeedbackRequest(BaseModel):

@@ -16,14 +16,31 @@ from pathlib import Path, PurePath
 
 from ..documents import Document, Skipped
 from ..errors import LoadError, SettingsError
-from ._common import Parsed, decode_text, is_binary, short_error
+from ._common import (
+    DEFAULT_LIMITS,
+    LoadLimits,
+    Parsed,
+    capped_warnings,
+    check_metadata_size,
+    check_text_size,
+    decode_text,
+    is_binary,
+    short_error,
+)
 from ._corpus import iter_corpus
 from ._html import declared_charset, parse_html
 from ._markdown import parse_markdown
 from ._pdf import parse_pdf
 from ._text import parse_text
 
-__all__ = ["SUPPORTED_SUFFIXES", "iter_root", "load_file", "parse_document"]
+__all__ = [
+    "DEFAULT_LIMITS",
+    "SUPPORTED_SUFFIXES",
+    "LoadLimits",
+    "iter_root",
+    "load_file",
+    "parse_document",
+]
 
 KINDS: dict[str, str] = {
     ".md": "markdown",
@@ -52,7 +69,7 @@ def file_suffix(name: str) -> str:
     return PurePath(lower).suffix
 
 
-def load_file(path: Path, doc_id: str) -> list[Document]:
+def load_file(path: Path, doc_id: str, limits: LoadLimits = DEFAULT_LIMITS) -> list[Document]:
     """Load one file as documents (one, or one per record of a corpus file).
 
     ``doc_id`` names the document (ignored for corpus files, whose records
@@ -64,8 +81,8 @@ def load_file(path: Path, doc_id: str) -> list[Document]:
     st = _stat(path)
     try:
         if kind == "corpus":
-            return _corpus_documents(path, doc_id, st)
-        return [_document(path, doc_id, kind, _read_bytes(path), st.st_mtime)]
+            return _corpus_documents(path, doc_id, st, limits)
+        return [_document(path, doc_id, kind, _read_bytes(path), st.st_mtime, limits)]
     except (LoadError, MemoryError):
         raise
     except PermissionError as exc:
@@ -77,14 +94,18 @@ def load_file(path: Path, doc_id: str) -> list[Document]:
 
 
 def iter_root(
-    root: Path, *, max_file_bytes: int = DEFAULT_MAX_FILE_BYTES
+    root: Path,
+    *,
+    max_file_bytes: int = DEFAULT_MAX_FILE_BYTES,
+    limits: LoadLimits = DEFAULT_LIMITS,
 ) -> Iterator[Document | Skipped]:
     """Yield every document under ``root`` (a folder or one file), in sorted path order.
 
     Ids are paths relative to ``root`` with ``/`` separators (the file name
     for a single-file root; the record ``_id`` in corpus files). Hidden
     entries are ignored silently, symlinked folders are not followed, and
-    every other file that is not loaded gives a Skipped with its reason.
+    every other file that is not loaded gives a Skipped with its reason
+    (so does a document over ``limits``).
     """
     if max_file_bytes < 1:
         raise SettingsError(f"max_file_bytes={max_file_bytes} must be at least 1")
@@ -100,9 +121,9 @@ def iter_root(
         yield Skipped(root.name, PERMISSION)
         return
     if stat.S_ISDIR(st.st_mode):
-        yield from _walk(root, (), max_file_bytes)
+        yield from _walk(root, (), max_file_bytes, limits)
     elif stat.S_ISREG(st.st_mode):
-        yield from _load_entry(root, root.name, st, max_file_bytes)
+        yield from _load_entry(root, root.name, st, max_file_bytes, limits)
     else:
         yield Skipped(root.name, "not a regular file")
 
@@ -118,7 +139,9 @@ def _scan(folder: Path, here: str) -> list[os.DirEntry[str]] | Skipped:
         return Skipped(here, f"cannot read folder: {exc.strerror or short_error(exc)}")
 
 
-def _walk(folder: Path, parts: tuple[str, ...], limit: int) -> Iterator[Document | Skipped]:
+def _walk(
+    folder: Path, parts: tuple[str, ...], limit: int, limits: LoadLimits
+) -> Iterator[Document | Skipped]:
     """Depth-first walk of ``folder``, entries sorted by name so runs are repeatable.
 
     Iterative, with an explicit stack: a legal but absurdly deep tree must not
@@ -160,7 +183,7 @@ def _walk(folder: Path, parts: tuple[str, ...], limit: int) -> Iterator[Document
                         rel, "symbolic link to a file outside the indexed folder; not followed"
                     )
                 elif stat.S_ISREG(st.st_mode):
-                    yield from _load_entry(path, rel, st, limit)
+                    yield from _load_entry(path, rel, st, limit, limits)
                 else:
                     yield Skipped(rel, "not a regular file")
             elif entry.is_dir(follow_symlinks=False):
@@ -170,7 +193,8 @@ def _walk(folder: Path, parts: tuple[str, ...], limit: int) -> Iterator[Document
                 else:
                     stack.append(((*parts, entry.name), iter(below)))
             elif entry.is_file(follow_symlinks=False):
-                yield from _load_entry(path, rel, entry.stat(follow_symlinks=False), limit)
+                st = entry.stat(follow_symlinks=False)
+                yield from _load_entry(path, rel, st, limit, limits)
             else:
                 yield Skipped(rel, "not a regular file")  # FIFOs would block a read
         except PermissionError:
@@ -180,7 +204,7 @@ def _walk(folder: Path, parts: tuple[str, ...], limit: int) -> Iterator[Document
 
 
 def _load_entry(
-    path: Path, rel: str, st: os.stat_result, limit: int
+    path: Path, rel: str, st: os.stat_result, limit: int, limits: LoadLimits
 ) -> Iterator[Document | Skipped]:
     """Documents of one regular file, or Skipped entries saying why not."""
     try:
@@ -204,9 +228,9 @@ def _load_entry(
         return
     try:
         if kind == "corpus":
-            yield from iter_corpus(path, rel, os.path.abspath(path), st.st_mtime)
+            yield from iter_corpus(path, rel, os.path.abspath(path), st.st_mtime, limits)
         else:
-            yield _document(path, rel, kind, _read_bytes(path), st.st_mtime)
+            yield _document(path, rel, kind, _read_bytes(path), st.st_mtime, limits)
     except LoadError as exc:
         yield Skipped(rel, str(exc))
     except MemoryError:
@@ -246,11 +270,13 @@ def _read_bytes(path: Path) -> bytes:
     return path.read_bytes()
 
 
-def _corpus_documents(path: Path, rel: str, st: os.stat_result) -> list[Document]:
+def _corpus_documents(
+    path: Path, rel: str, st: os.stat_result, limits: LoadLimits
+) -> list[Document]:
     """All good records of a corpus file; LoadError when there are none."""
     docs: list[Document] = []
     first_problem: Skipped | None = None
-    for item in iter_corpus(path, rel, os.path.abspath(path), st.st_mtime):
+    for item in iter_corpus(path, rel, os.path.abspath(path), st.st_mtime, limits):
         if isinstance(item, Document):
             docs.append(item)
         elif first_problem is None:
@@ -264,21 +290,37 @@ def _corpus_documents(path: Path, rel: str, st: os.stat_result) -> list[Document
     return docs
 
 
-def _document(path: Path, doc_id: str, kind: str, data: bytes, modified: float) -> Document:
+def _document(
+    path: Path, doc_id: str, kind: str, data: bytes, modified: float, limits: LoadLimits
+) -> Document:
     """Parse the bytes of a non-corpus file into a Document; LoadError if unusable."""
     return parse_document(
-        data, kind, doc_id=doc_id, name=path.name, source=os.path.abspath(path), modified=modified
+        data,
+        kind,
+        doc_id=doc_id,
+        name=path.name,
+        source=os.path.abspath(path),
+        modified=modified,
+        limits=limits,
     )
 
 
 def parse_document(
-    data: bytes, kind: str, *, doc_id: str, name: str, source: str, modified: float
+    data: bytes,
+    kind: str,
+    *,
+    doc_id: str,
+    name: str,
+    source: str,
+    modified: float,
+    limits: LoadLimits = DEFAULT_LIMITS,
 ) -> Document:
     """Parse one document's bytes (``kind``: markdown, html, pdf or text).
 
     What a file on disk goes through, for documents that arrive otherwise
     (pushed over HTTP). ``name`` gives the fallback title; LoadError with the
-    reason when the bytes are unusable.
+    reason when the bytes are unusable, when the document's access metadata
+    cannot be read with certainty, or when it is over ``limits``.
     """
     if kind not in ("markdown", "html", "pdf", "text"):
         raise LoadError(f"unsupported kind {kind!r}; use markdown, html, pdf or text")
@@ -287,24 +329,26 @@ def parse_document(
     stem = PurePath(name).stem
     warnings: list[str] = []
     if kind == "pdf":
-        parsed: Parsed = parse_pdf(data, stem)
+        parsed: Parsed = parse_pdf(data, stem, max_chars=limits.max_chars)
     else:
         if is_binary(data):
             raise LoadError(BINARY)
         charset = declared_charset(data) if kind == "html" else None
         text, warnings = decode_text(data, charset)
         if kind == "markdown":
-            parsed = parse_markdown(text, stem)
+            parsed = parse_markdown(text, stem, max_front_matter_bytes=limits.max_metadata_bytes)
         elif kind == "html":
             parsed = parse_html(text, stem)
         else:
             parsed = parse_text(text, stem)
     if not parsed.sections:
         raise LoadError(NO_TEXT)
+    check_text_size(parsed.sections, limits.max_chars)
     metadata = dict(parsed.metadata)
     warnings += parsed.warnings
     if warnings:
-        metadata["warnings"] = warnings
+        metadata["warnings"] = capped_warnings(warnings)
+    check_metadata_size(metadata, limits.max_metadata_bytes)
     return Document(
         id=doc_id,
         title=parsed.title,

@@ -4,12 +4,14 @@ from __future__ import annotations
 
 import codecs
 import datetime as dt
+import json
 import math
 import re
 from dataclasses import dataclass, field
 from typing import Any
 
 from ..documents import Section
+from ..errors import LoadError
 
 UTF8_BOM = b"\xef\xbb\xbf"
 INVALID_UTF8 = "invalid UTF-8 replaced with U+FFFD"
@@ -17,6 +19,14 @@ INVALID_UTF8 = "invalid UTF-8 replaced with U+FFFD"
 BINARY_SNIFF_BYTES = 8192
 # First lines longer than this are prose, not a title.
 MAX_TITLE_CHARS = 120
+
+# Generous for real documents (2 M characters is a book of about 1,000 pages; 64 KiB of
+# metadata is far more than any front matter holds), small enough that a few KB of
+# compressed PDF or of YAML cannot cost minutes of work or hundreds of MB per search.
+DEFAULT_MAX_DOCUMENT_CHARS = 2_000_000
+DEFAULT_MAX_METADATA_BYTES = 64 * 1024
+# A PDF with thousands of broken pages would otherwise carry thousands of warnings.
+MAX_WARNINGS = 20
 
 _BLANK_RUNS = re.compile(r"\n[ \t]*\n(?:[ \t]*\n)+")
 _SEPARATORS = re.compile(r"[-_\s]+")
@@ -30,6 +40,50 @@ class Parsed:
     sections: list[Section]
     metadata: dict[str, Any] = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
+
+
+@dataclass(frozen=True)
+class LoadLimits:
+    """How much one document may cost: characters of text, bytes of stored metadata."""
+
+    max_chars: int = DEFAULT_MAX_DOCUMENT_CHARS
+    max_metadata_bytes: int = DEFAULT_MAX_METADATA_BYTES
+
+
+DEFAULT_LIMITS = LoadLimits()
+
+
+def too_many_chars(count: int, limit: int, where: str = "") -> LoadError:
+    """The error for text over the character limit (``where``: how far extraction got)."""
+    return LoadError(
+        f"text is {count} characters{where}, over the limit of {limit} (setting max_document_chars)"
+    )
+
+
+def check_text_size(sections: list[Section], limit: int) -> None:
+    """Raise LoadError when the sections hold more than ``limit`` characters."""
+    count = sum(len(s.text) for s in sections)
+    if count > limit:
+        raise too_many_chars(count, limit)
+
+
+def check_metadata_size(metadata: dict[str, Any], limit: int) -> None:
+    """Raise LoadError when ``metadata`` stored as JSON (as the index writer stores it) is
+    over ``limit`` bytes: every search that returns the document loads it."""
+    size = len(json.dumps(metadata, ensure_ascii=False, default=str).encode("utf-8"))
+    if size > limit:
+        raise LoadError(
+            f"metadata is {size} bytes as stored, over the limit of {limit} "
+            "(setting max_metadata_bytes)"
+        )
+
+
+def capped_warnings(warnings: list[str]) -> list[str]:
+    """At most MAX_WARNINGS warnings, the rest counted in a last line."""
+    if len(warnings) <= MAX_WARNINGS:
+        return warnings
+    rest = len(warnings) - MAX_WARNINGS + 1
+    return [*warnings[: MAX_WARNINGS - 1], f"… and {rest} more warnings"]
 
 
 def is_binary(data: bytes) -> bool:

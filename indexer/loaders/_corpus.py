@@ -14,8 +14,11 @@ from typing import Any
 from ..documents import Document, Section, Skipped
 from ..errors import LoadError
 from ._common import (
+    DEFAULT_LIMITS,
     INVALID_UTF8,
     UTF8_BOM,
+    LoadLimits,
+    check_metadata_size,
     is_binary,
     json_safe,
     normalise_newlines,
@@ -27,7 +30,9 @@ BINARY = "binary content in a text file"
 _RESERVED = ("_id", "title", "text", "metadata")
 
 
-def iter_corpus(path: Path, rel: str, source: str, modified: float) -> Iterator[Document | Skipped]:
+def iter_corpus(
+    path: Path, rel: str, source: str, modified: float, limits: LoadLimits = DEFAULT_LIMITS
+) -> Iterator[Document | Skipped]:
     """Documents of a corpus file, and a ``Skipped("rel:line", reason)`` per bad line.
 
     Raises LoadError when the file as a whole cannot be used (binary, corrupt
@@ -49,7 +54,7 @@ def iter_corpus(path: Path, rel: str, source: str, modified: float) -> Iterator[
                 if not line.strip():
                     continue
                 seen_any = True
-                yield _record(line, lineno, rel, source, modified)
+                yield _record(line, lineno, rel, source, modified, limits)
         except (EOFError, zlib.error, gzip.BadGzipFile) as exc:
             where = f" (after line {lineno})" if lineno else ""
             raise LoadError(f"corrupt gzip file{where}: {short_error(exc)}") from exc
@@ -63,7 +68,19 @@ def _open(path: Path, gz: bool) -> io.BufferedIOBase:
     return path.open("rb")
 
 
-def _record(line: bytes, lineno: int, rel: str, source: str, modified: float) -> Document | Skipped:
+def _no_repeats(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
+    """A JSON object's dict, refusing a repeated key (json.loads keeps the last one)."""
+    out: dict[str, Any] = {}
+    for key, value in pairs:
+        if key in out:
+            raise ValueError(f"the record repeats the key {key!r}")
+        out[key] = value
+    return out
+
+
+def _record(
+    line: bytes, lineno: int, rel: str, source: str, modified: float, limits: LoadLimits
+) -> Document | Skipped:
     """One corpus line as a Document, or as a Skipped naming the line and the problem."""
     where = f"{rel}:{lineno}"
     warnings: list[str] = []
@@ -72,8 +89,11 @@ def _record(line: bytes, lineno: int, rel: str, source: str, modified: float) ->
     except UnicodeDecodeError:
         text_line = line.decode("utf-8", errors="replace")
         warnings.append(INVALID_UTF8)
+    # A repeated "groups" would be read as its last value: which was meant is uncertain.
+    # The strict parse costs more, so only lines that could repeat it pay for it.
+    hook = _no_repeats if text_line.count('"groups"') > 1 else None
     try:
-        record: Any = json.loads(text_line)
+        record: Any = json.loads(text_line, object_pairs_hook=hook)
     except json.JSONDecodeError as exc:
         return Skipped(where, f"invalid JSON: {exc.msg} (column {exc.colno})")
     except (ValueError, RecursionError) as exc:
@@ -93,6 +113,12 @@ def _record(line: bytes, lineno: int, rel: str, source: str, modified: float) ->
         return Skipped(where, "record has no 'text'")
     if not isinstance(text, str):
         return Skipped(where, "'text' must be a string")
+    if len(text) > limits.max_chars:
+        return Skipped(
+            where,
+            f"text is {len(text)} characters, over the limit of {limits.max_chars} "
+            "(setting max_document_chars)",
+        )
     text = tidy_text(normalise_newlines(text))
     title = record.get("title")
     title = "" if title is None else " ".join(str(json_safe(title)).split())
@@ -106,8 +132,22 @@ def _record(line: bytes, lineno: int, rel: str, source: str, modified: float) ->
         metadata.update(json_safe(extra))
     elif extra is not None:
         metadata["metadata"] = json_safe(extra)
+    if (
+        isinstance(extra, dict)
+        and "groups" in extra
+        and "groups" in record
+        and json_safe(record["groups"]) != json_safe(extra["groups"])
+    ):
+        return Skipped(where, "'groups' and 'metadata.groups' differ; keep one")
     if warnings:
         metadata["warnings"] = warnings
+    # Stored metadata is a re-serialised part of the line: at most about 5 times its bytes
+    # (a number such as 1e15 grows most), so short lines need no measuring.
+    if len(line) * 5 > limits.max_metadata_bytes:
+        try:
+            check_metadata_size(metadata, limits.max_metadata_bytes)
+        except LoadError as exc:
+            return Skipped(where, str(exc))
     return Document(
         id=doc_id,
         title=title,

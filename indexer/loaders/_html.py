@@ -12,6 +12,10 @@ from ..errors import LoadError
 from ._common import Parsed, as_tags, same_title, tidy_text, title_from_stem
 
 NO_MARKUP = "not HTML: no markup found"
+_FIX = "fix it: the page's access groups cannot be read with certainty until then"
+GROUPS_META_NAME = f'<meta name="group"> is not read; did you mean name="groups"? {_FIX}'
+GROUPS_META_EMPTY = f'<meta name="groups"> has no content; name the groups or remove it; {_FIX}'
+GROUPS_META_TWICE = f'the page has two <meta name="groups"> with different content; {_FIX}'
 
 # Elements whose content is never page text (chrome, code, embedded objects).
 DROPPED = frozenset(
@@ -243,12 +247,27 @@ class _Extractor(HTMLParser):
     def _meta(self, attr: dict[str, str]) -> None:
         name = attr.get("name", "").strip().lower()
         content = attr.get("content", "").strip()
-        if not content or name not in ("keywords", "description", "author", "groups"):
+        if name in ("groups", "group"):
+            self._groups_meta(name, content)
+            return
+        if not content or name not in ("keywords", "description", "author"):
             return
         key = "tags" if name == "keywords" else name
         if key not in self.meta:
-            # groups stay a string: indexer.access validates them (and fails closed).
             self.meta[key] = as_tags(content) if key == "tags" else _SPACES.sub(" ", content)
+
+    def _groups_meta(self, name: str, content: str) -> None:
+        """Keep the page's groups; refuse what cannot be read with certainty (the page
+        might be restricted), so it is skipped rather than readable by everyone."""
+        if name != "groups":
+            raise LoadError(GROUPS_META_NAME)
+        if not content:
+            raise LoadError(GROUPS_META_EMPTY)
+        content = _SPACES.sub(" ", content)
+        if self.meta.get("groups", content) != content:
+            raise LoadError(GROUPS_META_TWICE)
+        # groups stay a string: indexer.access validates them (and fails closed).
+        self.meta["groups"] = content
 
     def _block(self, tag: str) -> None:
         if tag in PARAGRAPH_BLOCKS:

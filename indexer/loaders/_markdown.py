@@ -6,15 +6,32 @@ import re
 from dataclasses import dataclass
 from typing import Any
 
-import yaml
 from markdown_it import MarkdownIt
 from markdown_it.tree import SyntaxTreeNode
 
 from ..documents import Section
-from ._common import Parsed, as_tags, json_safe, same_title, tidy_text, title_from_stem
+from ..errors import LoadError
+from ._common import (
+    DEFAULT_MAX_METADATA_BYTES,
+    Parsed,
+    as_tags,
+    json_safe,
+    same_title,
+    tidy_text,
+    title_from_stem,
+)
+from ._yaml import load_front_matter
 
-BAD_FRONT_MATTER = "front matter is not valid YAML; ignored"
-NOT_A_MAPPING = "front matter is not a YAML mapping; ignored"
+NOT_A_MAPPING = (
+    "front matter is not a YAML mapping (key: value lines); fix it: the page's access "
+    "groups cannot be read with certainty until then"
+)
+UNCLOSED = (
+    "front matter names groups but has no closing '---' line; close it, or the "
+    "groups would be indexed as text and the page readable by everyone"
+)
+# An unclosed block that still names groups was meant as front matter.
+_GROUPS_LINE = re.compile(r"^\s*groups?\s*:", re.IGNORECASE)
 
 # CommonMark, plus the GFM tables and strikethrough most wikis render.
 _PARSER = MarkdownIt("commonmark").enable(["table", "strikethrough"])
@@ -34,10 +51,17 @@ class _Heading:
     text: str
 
 
-def parse_markdown(text: str, stem: str) -> Parsed:
-    """Split Markdown ``text`` into sections under heading trails."""
+def parse_markdown(
+    text: str, stem: str, *, max_front_matter_bytes: int = DEFAULT_MAX_METADATA_BYTES
+) -> Parsed:
+    """Split Markdown ``text`` into sections under heading trails.
+
+    LoadError when the front matter cannot be read with certainty (it may
+    hold the page's groups): invalid YAML, not a mapping, aliases, repeated
+    keys, unclosed while naming groups, or over ``max_front_matter_bytes``.
+    """
     parsed = Parsed(title="", sections=[])
-    body, front = _split_front_matter(text, parsed.warnings)
+    body, front = _split_front_matter(text, max_front_matter_bytes)
     tokens = _tokenise(body)
 
     title = ""
@@ -58,7 +82,7 @@ def parse_markdown(text: str, stem: str) -> Parsed:
     return parsed
 
 
-def _split_front_matter(text: str, warnings: list[str]) -> tuple[str, dict[Any, Any] | None]:
+def _split_front_matter(text: str, max_bytes: int) -> tuple[str, dict[Any, Any] | None]:
     """The body after any YAML front matter, and the front matter as a dict (or None)."""
     lines = text.split("\n")
     if not lines or lines[0].rstrip() != "---":
@@ -67,18 +91,25 @@ def _split_front_matter(text: str, warnings: list[str]) -> tuple[str, dict[Any, 
         if lines[end].rstrip() in ("---", "..."):
             break
     else:
-        return text, None  # no closing line: the "---" is a thematic break
+        # No closing line: the "---" is a thematic break, unless groups follow it.
+        if any(_GROUPS_LINE.match(line) for line in lines[1:50]):
+            raise LoadError(UNCLOSED)
+        return text, None
     body = "\n".join(lines[end + 1 :])
-    try:
-        front = yaml.safe_load("\n".join(lines[1:end]))
-    except Exception:  # noqa: BLE001 - YAMLError, but also ValueError for dates like 2024-13-01
-        warnings.append(BAD_FRONT_MATTER)
-        return body, None
+    source = "\n".join(lines[1:end])
+    size = len(source.encode("utf-8"))
+    if size > max_bytes:  # refused before parsing: YAML costs far more than its bytes
+        raise LoadError(
+            f"front matter is {size} bytes, over the limit of {max_bytes} "
+            "(setting max_metadata_bytes)"
+        )
+    front = load_front_matter(source)
     if front is None:
         return body, {}
+    if isinstance(front, str) and not re.search("group", front, re.IGNORECASE):
+        return text, None  # prose between two thematic breaks, not front matter
     if not isinstance(front, dict):
-        warnings.append(NOT_A_MAPPING)
-        return body, None
+        raise LoadError(NOT_A_MAPPING)
     return body, front
 
 

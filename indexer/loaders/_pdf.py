@@ -5,13 +5,21 @@ from __future__ import annotations
 import io
 import logging
 import warnings as py_warnings
+from typing import Any
 
-from pypdf import PdfReader
+from pypdf import PageObject, PdfReader
 from pypdf.errors import DependencyError
 
 from ..documents import Section
 from ..errors import LoadError
-from ._common import Parsed, first_line_title, short_error, tidy_text, title_from_stem
+from ._common import (
+    DEFAULT_MAX_DOCUMENT_CHARS,
+    Parsed,
+    first_line_title,
+    short_error,
+    tidy_text,
+    title_from_stem,
+)
 
 ENCRYPTED = "encrypted PDF (no password available)"
 NO_TEXT_LAYER = "no text (scanned PDF without a text layer?)"
@@ -20,20 +28,51 @@ NO_TEXT_LAYER = "no text (scanned PDF without a text layer?)"
 # would drown in them, and a file that truly cannot be read is reported as Skipped.
 logging.getLogger("pypdf").setLevel(logging.ERROR)
 
+# Operators that show text; their string operands are what extraction turns into text.
+_SHOW_TEXT = frozenset({b"Tj", b"TJ", b"'", b'"'})
 
-def parse_pdf(data: bytes, stem: str) -> Parsed:
-    """Extract page texts (1-based page numbers), title and page count from PDF bytes."""
+
+class _OverBudget(Exception):
+    """Raised from inside pypdf's extraction once a page shows more text than is left."""
+
+
+def parse_pdf(data: bytes, stem: str, *, max_chars: int = DEFAULT_MAX_DOCUMENT_CHARS) -> Parsed:
+    """Extract page texts (1-based page numbers), title and page count from PDF bytes.
+
+    Extraction stops as soon as the text passes ``max_chars`` (a few KB of
+    compressed PDF can hold millions of characters): LoadError then.
+    """
     with py_warnings.catch_warnings():
         py_warnings.simplefilter("ignore")
         try:
-            return _parse(data, stem)
+            return _parse(data, stem, max_chars)
         except (LoadError, MemoryError):
             raise
         except Exception as exc:  # noqa: BLE001 - pypdf raises many types on broken files
             raise LoadError(f"malformed PDF: {short_error(exc)}") from exc
 
 
-def _parse(data: bytes, stem: str) -> Parsed:
+def _page_text(page: PageObject, left: int) -> str:
+    """The text of ``page``; _OverBudget as soon as it shows more than ``left`` characters.
+
+    The count is of the shown strings' bytes, at most two a character in the fonts
+    PDFs use, so twice ``left`` is never reached by a page within the budget.
+    """
+    shown = 0
+
+    def count(operator: bytes, operands: list[Any], *_: Any) -> None:
+        nonlocal shown
+        if operator in _SHOW_TEXT:
+            for item in operands[-1] if operator == b"TJ" and operands else operands:
+                if isinstance(item, str | bytes):
+                    shown += len(item)
+            if shown > 2 * left:
+                raise _OverBudget
+
+    return page.extract_text(visitor_operand_before=count) or ""
+
+
+def _parse(data: bytes, stem: str, max_chars: int) -> Parsed:
     reader = PdfReader(io.BytesIO(data))
     if reader.is_encrypted:
         try:
@@ -44,14 +83,20 @@ def _parse(data: bytes, stem: str) -> Parsed:
             raise LoadError(ENCRYPTED)
     parsed = Parsed(title="", sections=[])
     first_page_text = ""
+    total = 0
     for number, page in enumerate(reader.pages, start=1):
         try:
-            text = tidy_text(_printable(page.extract_text() or ""))
+            text = tidy_text(_printable(_page_text(page, max_chars - total)))
+        except _OverBudget:
+            raise _stopped(max_chars, number) from None
         except Exception as exc:  # noqa: BLE001 - one bad page should not lose the others
             parsed.warnings.append(f"page {number}: text not extracted ({short_error(exc, 120)})")
             continue
         if number == 1:
             first_page_text = text
+        total += len(text)
+        if total > max_chars:
+            raise _stopped(max_chars, number)
         if text.strip():
             parsed.sections.append(Section(trail=(), text=text, page=number))
     if not parsed.sections:
@@ -62,6 +107,13 @@ def _parse(data: bytes, stem: str) -> Parsed:
         parsed.metadata["author"] = info["author"]
     parsed.title = info.get("title") or first_line_title(first_page_text) or title_from_stem(stem)
     return parsed
+
+
+def _stopped(max_chars: int, page: int) -> LoadError:
+    return LoadError(
+        f"text passes the limit of {max_chars} characters at page {page} "
+        "(setting max_document_chars); extraction stopped there"
+    )
 
 
 def _info(reader: PdfReader) -> dict[str, str]:

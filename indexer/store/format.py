@@ -16,8 +16,8 @@ from typing import Any
 from ..chunking import ChunkSettings
 from ..errors import IndexCorruptError, IndexMismatchError, IndexMissingError
 from ..vectorfile import temporary_path
-from .modes import open_owner_only
 from ..vectors import EXACT, VectorPlan
+from .modes import open_owner_only
 
 SCHEMA_VERSION = 3
 # Older schemas a writer upgrades in place (2: one FTS5 table for every chunk).

@@ -6,7 +6,6 @@ vectors as blobs, and batching of long ``IN (...)`` lists.
 
 from __future__ import annotations
 
-import os
 import sqlite3
 from collections.abc import Iterator, Sequence
 from pathlib import Path
@@ -15,6 +14,7 @@ from typing import TypeVar
 import numpy as np
 
 from ..errors import IndexStoreError
+from .modes import FOLDER_MODE, create_owner_only
 
 # SQLite builds before 3.32 allow 999 host parameters a statement; stay below that.
 IN_BATCH = 900
@@ -26,13 +26,15 @@ def connect(path: Path, *, readonly: bool) -> sqlite3.Connection:
     """A connection to an index database: read-only, or read-write in WAL mode.
 
     The writer's is in autocommit mode (it opens its own transactions); rows
-    come back as :class:`sqlite3.Row`.
+    come back as :class:`sqlite3.Row`. A read-write one creates (or tightens)
+    the file and its -wal and -shm owner-only first: they hold document text.
     """
     if readonly:
         conn = sqlite3.connect(
             f"{path.resolve().as_uri()}?mode=ro", uri=True, check_same_thread=False
         )
     else:
+        create_owner_only(path)
         conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
         conn.execute("PRAGMA journal_mode=WAL")
         conn.execute("PRAGMA synchronous=NORMAL")
@@ -43,22 +45,20 @@ def connect(path: Path, *, readonly: bool) -> sqlite3.Connection:
 
 
 def open_side_database(
-    path: Path, schema: str, what: str, *, owner_only: bool = False
+    path: Path, schema: str, what: str, *, owner_only: bool = True
 ) -> sqlite3.Connection:
     """Open (creating) a small SQLite file kept beside an index: judgments, API keys.
 
-    WAL mode, a busy timeout, ``schema`` applied; ``owner_only`` creates the
-    file readable by its owner only before SQLite opens it (SQLite gives its
-    -wal and -shm files the database file's permissions: SQLite unix VFS,
-    robustFchown and findCreateFileMode in os_unix.c). IndexStoreError naming
-    ``what`` when it cannot be opened.
+    WAL mode, a busy timeout, ``schema`` applied. The file and its -wal and
+    -shm are owner-only (they hold queries, restricted ids or keys): created
+    so, or tightened when found looser (see :func:`.modes.create_owner_only`);
+    ``owner_only=False`` is accepted for old callers and changes nothing.
+    IndexStoreError naming ``what`` when it cannot be opened.
     """
+    del owner_only  # always: nothing sounding keeps beside an index is for others
     try:
-        path.parent.mkdir(parents=True, exist_ok=True, mode=0o700)
-        if owner_only:
-            os.close(os.open(path, os.O_RDWR | os.O_CREAT, 0o600))
-            if path.stat().st_mode & 0o077:
-                os.chmod(path, 0o600)
+        path.parent.mkdir(parents=True, exist_ok=True, mode=FOLDER_MODE)
+        create_owner_only(path)
         conn = sqlite3.connect(path, check_same_thread=False, isolation_level=None)
         conn.execute("PRAGMA journal_mode=WAL")
         conn.execute("PRAGMA busy_timeout=10000")

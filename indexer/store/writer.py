@@ -30,8 +30,8 @@ from .format import (
     vectors_filename,
 )
 from .integrity import WITHOUT_CHUNKS
-from .modes import owner_only_folder
 from .lexstore import lexical_body  # noqa: F401  (re-exported by the package)
+from .modes import owner_only_folder
 from .sqlite import (
     blob_vector,
     chunk_ids,

@@ -18,6 +18,7 @@ from sounding.indexer.access import parse_groups, parse_tags
 from sounding.indexer.build import PushReport, delete_document, push_document
 from sounding.indexer.errors import IndexLockedError, LoadError, SettingsError
 from sounding.indexer.loaders import parse_document
+from sounding.indexer.reports import warnings_of
 
 from ..auth import ReadCaller, WriteCaller
 from ..deps import EngineDep, MaybeGenerationDep, ReaderDep, SettingsDep
@@ -39,6 +40,11 @@ _KINDS_BY_SUFFIX = {
     ".pdf": "pdf",
     ".txt": "text",
 }
+_FORM_FIELDS = frozenset({"file", "title", "collection", "source", "modified", "groups", "tags"})
+_BLANK_GROUPS = (
+    "the form field 'groups' is empty; leave it out to use the document's own groups or "
+    'the access rules (a JSON push may send "groups": [] for readable by everyone)'
+)
 # One push at a time per process; the index lock orders it against `sounding index` runs.
 _push_lock = threading.Lock()
 
@@ -116,6 +122,9 @@ async def _push_body(request: Request) -> tuple[PushRequest, bytes, str]:
         kind = _KINDS_BY_SUFFIX.get(suffix)
         if kind is None:
             raise HTTPException(422, f"uploaded file {name!r} is not .md, .html, .pdf or .txt")
+        unknown = sorted(set(form) - _FORM_FIELDS)
+        if unknown:  # a misspelt "group" would otherwise publish the page to everyone
+            raise HTTPException(422, f"unknown form fields {unknown}; use {sorted(_FORM_FIELDS)}")
         fields: dict[str, Any] = {"text": "-", "format": "text"}
         for key in ("title", "collection", "source", "modified"):
             if form.get(key):
@@ -124,6 +133,8 @@ async def _push_body(request: Request) -> tuple[PushRequest, bytes, str]:
             if key in form:
                 raw = str(form.get(key) or "")
                 fields[key] = [v.strip() for v in raw.split(",") if v.strip()]
+        if "groups" in fields and not fields["groups"]:
+            raise HTTPException(422, _BLANK_GROUPS)
         try:
             meta = PushRequest(**fields)
         except ValidationError as exc:
@@ -212,6 +223,7 @@ def put_document(
             name=meta.title or document_id.rsplit("/", 1)[-1],
             source=meta.source or f"pushed:{document_id}",
             modified=meta.modified if meta.modified is not None else time.time(),
+            limits=settings.load_limits,
         )
     except LoadError as exc:
         raise HTTPException(422, f"cannot index document {document_id!r}: {exc}") from None
@@ -246,6 +258,7 @@ def put_document(
         chunks=report.chunks,
         chunks_embedded=report.chunks_embedded,
         generation=report.generation,
+        warnings=warnings_of(doc),
     )
 
 

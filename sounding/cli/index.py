@@ -72,9 +72,8 @@ def index_command(
     if as_json:
         click.echo(json.dumps(report.to_json(), indent=2))
     else:
-        click.echo(report.summary())
-        for s in report.skipped:
-            click.echo(f"skipped {s.path}: {s.reason}")
+        # Counts, then every skipped file with its reason and every warning about a document.
+        click.echo(report.text())
     if report.lock_taken_over:
         click.echo(
             "sounding: note: the previous run died holding the lock; this run took it over",

@@ -45,21 +45,23 @@ def test_front_matter_gives_title_tags_and_json_safe_metadata(tmp_path: Path, ta
 
 
 @pytest.mark.parametrize(
-    ("front", "warning"),
+    ("front", "reason"),
     [
-        ("title: [unclosed\n", "front matter is not valid YAML; ignored"),
-        ("key: value\n  bad indent: x\n", "front matter is not valid YAML; ignored"),
-        ("date: 2024-13-45\n", "front matter is not valid YAML; ignored"),
-        ("- just\n- a list\n", "front matter is not a YAML mapping; ignored"),
+        ("title: [unclosed\n", "front matter is not valid YAML"),
+        ("key: value\n  bad indent: x\n", "front matter is not valid YAML"),
+        ("- just\n- a list\n", "front matter is not a YAML mapping"),
     ],
 )
-def test_bad_front_matter_is_ignored_with_a_warning(
-    tmp_path: Path, front: str, warning: str
-) -> None:
-    doc = load_one(tmp_path, "page.md", f"---\n{front}---\n# Real title\n\nBody.\n")
-    assert doc.metadata == {"warnings": [warning]}
+def test_bad_front_matter_skips_the_page(tmp_path: Path, front: str, reason: str) -> None:
+    # Fail closed: the front matter may hold the page's groups (indexer/access.py).
+    got = skip_reason(tmp_path, "page.md", f"---\n{front}---\n# Real title\n\nBody.\n")
+    assert got.startswith(reason) and "groups cannot be read" in got
+
+
+def test_an_impossible_date_stays_text(tmp_path: Path) -> None:
+    doc = load_one(tmp_path, "page.md", "---\ndate: 2024-13-45\n---\n# Real title\n\nBody.\n")
+    assert doc.metadata == {"date": "2024-13-45"}
     assert doc.title == "Real title"
-    assert texts(doc) == [((), "Body.")]
 
 
 def test_empty_front_matter_adds_nothing(tmp_path: Path) -> None:
