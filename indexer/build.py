@@ -18,7 +18,8 @@ from .loaders import iter_root
 from .lock import IndexLock
 from .reports import PushReport, RefreshReport
 from .settings import IndexSettings
-from .store import IndexWriter, write_last_run
+from .store import SCHEMA_VERSION, IndexWriter, Manifest, write_last_run
+from .vectors import plan_is_current
 
 __all__ = ["PushReport", "RefreshReport", "delete_document", "push_document", "refresh_index"]
 
@@ -131,7 +132,7 @@ def _refresh(
         raise SettingsError("no path to index; name one or more folders or files")
     for root in roots:
         if not root.exists():
-            raise SettingsError(f"path to index does not exist: {root}")
+            raise SettingsError(f"the folder to index does not exist: {root}")
     chunking = settings.chunking
     chunking.check(embedder.max_tokens)
     report = RefreshReport()
@@ -212,12 +213,30 @@ def _refresh(
         gone = [i for i, (coll, _) in known.items() if coll in collections and i not in seen]
         writer.remove(gone)
         report.removed = sorted(gone)
-        manifest = writer.publish()
+        previous = writer.previous
+        changed = rebuild or report.added or report.updated or gone
+        if previous is not None and not changed and _current(previous, settings, writer):
+            # A new generation would only make every service reload the same index.
+            manifest, report.published = previous, False
+        else:
+            manifest = writer.publish()
     report.generation = manifest.generation
     report.documents = manifest.documents
     report.chunks = manifest.chunks
     report.seconds = time.monotonic() - started
     return report
+
+
+def _current(previous: Manifest, settings: IndexSettings, writer: IndexWriter) -> bool:
+    """Whether the last generation needs nothing when no document changed: a schema upgrade,
+    a lost vector file or a new vector index setting is published all the same."""
+    return (
+        previous.schema_version == SCHEMA_VERSION
+        and (settings.index_dir / previous.vectors_file).is_file()
+        and plan_is_current(
+            previous.vectors, previous.chunks, writer.dimension, settings.vector_choice
+        )
+    )
 
 
 def _embed_and_store(

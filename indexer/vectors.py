@@ -278,6 +278,24 @@ def needs_rebuild(index: faiss.Index, n: int, choice: VectorChoice = DEFAULT_CHO
     return False
 
 
+def plan_is_current(
+    described: dict[str, Any] | None, n: int, dimension: int, choice: VectorChoice
+) -> bool:
+    """Whether a manifest's ``vectors`` entry for ``n`` vectors already is what ``choice``
+    asks for, so a run that changed no document has nothing to rebuild or publish."""
+    have = VectorPlan.from_json(described)
+    want = plan_vectors(
+        n, dimension, kind=choice.kind, exact_below=choice.exact_below, nprobe=choice.nprobe
+    )
+    if want.kind != have.kind:
+        return False
+    if want.kind != IVF:
+        return True
+    if have.params.get("quantizer") != want.params["quantizer"]:
+        return False
+    return choice.nprobe is None or have.params.get("nprobe") == want.params["nprobe"]
+
+
 def index_ids(index: faiss.Index) -> np.ndarray:
     """Every id the index holds (int64; order unspecified)."""
     ivf = _ivf(index)

@@ -59,7 +59,9 @@ def index_command(
     roots = [Path(p) for p in paths]
     for path in roots:  # before the slow model load, so a typo fails at once
         if not path.exists():
-            raise SettingsError(f"path to index does not exist: {path}")
+            raise SettingsError(
+                f"the folder to index does not exist: {path}; name a folder (or file) of documents"
+            )
     report = refresh_index(
         roots,
         config,
@@ -80,9 +82,13 @@ def index_command(
             err=True,
         )
     if report.documents == 0:
-        click.echo(
-            "sounding: error: nothing could be indexed; see the skipped files above", err=True
+        why = (
+            "see the skipped files above"
+            if report.skipped
+            else f"no file in {', '.join(paths)} is one sounding reads "
+            "(.md, .markdown, .html, .htm, .pdf, .txt, corpus.jsonl); name a folder that holds some"
         )
+        click.echo(f"sounding: error: nothing could be indexed; {why}", err=True)
         return 1
     return 0
 

@@ -95,8 +95,49 @@ def test_main_returns_the_exit_code(capsys: pytest.CaptureFixture[str]) -> None:
 def test_missing_path_fails_at_once_with_one_line(tmp_path: Path) -> None:
     result = sounding("index", str(tmp_path / "no-such-folder"), "--index", str(tmp_path / "idx"))
     assert result.exit_code == 2
-    assert "does not exist" in one_line_error(result)
+    line = one_line_error(result)
+    assert "the folder to index does not exist" in line and "no-such-folder" in line
     assert not (tmp_path / "idx").exists()
+
+
+@pytest.mark.parametrize("command", [["index", "."], ["search", "pump"], ["check"]])
+def test_an_index_folder_that_is_a_file_is_one_line(tmp_path: Path, command: list[str]) -> None:
+    (tmp_path / "idx").write_text("not a folder")
+    result = sounding(*command, "--index", str(tmp_path / "idx"))
+    assert result.exit_code == 2
+    line = one_line_error(result)
+    assert "is a file, not a folder" in line and "SOUNDING_INDEX_DIR" in line
+    assert "lock" not in line and "sounding index" not in line
+
+
+def test_an_empty_folder_says_there_is_nothing_to_read(tmp_path: Path, fake_encoder) -> None:
+    (tmp_path / "docs").mkdir()
+    result = sounding("index", str(tmp_path / "docs"), "--index", str(tmp_path / "idx"))
+    assert result.exit_code == 1
+    line = one_line_error(result)
+    assert "nothing could be indexed" in line and "above" not in line and ".md" in line
+
+
+def test_the_plain_report_lists_changed_removed_and_skipped(tmp_path: Path, fake_encoder) -> None:
+    docs = tmp_path / "docs"
+    docs.mkdir()
+    (docs / "boiler.md").write_text("# Boiler\n\nBleed the radiator.\n")
+    (docs / "canteen.txt").write_text("Canteen hours\n\nLunch at noon.\n")
+    idx = str(tmp_path / "idx")
+    first = sounding("index", str(docs), "--index", idx, "--quiet")
+    assert first.stdout.splitlines()[1:] == ["added boiler.md", "added canteen.txt"]
+    (docs / "boiler.md").write_text("# Boiler\n\nBleed the radiator, then relight.\n")
+    (docs / "canteen.txt").unlink()
+    (docs / "photo.jpg").write_bytes(b"\xff\xd8\xff")
+    second = sounding("index", str(docs), "--index", idx, "--quiet")
+    assert second.exit_code == 0, second.stderr
+    lines = second.stdout.splitlines()
+    assert lines[0].startswith("added 0, updated 1, removed 1, unchanged 0, skipped 1;")
+    assert lines[1:3] == ["updated boiler.md", "removed canteen.txt"]
+    assert lines[3].startswith("skipped photo.jpg: ")
+    third = sounding("index", str(docs), "--index", idx, "--json")
+    assert json.loads(third.stdout)["published"] is False
+    assert json.loads(third.stdout)["generation"] == 2
 
 
 def test_search_without_an_index_says_how_to_build_one(tmp_path: Path) -> None:
@@ -119,7 +160,26 @@ def test_bad_setting_from_the_environment_is_one_line(monkeypatch: pytest.Monkey
     monkeypatch.setenv("SOUNDING_CHUNK_TOKENS", "lots")
     result = sounding("search", "x")
     assert result.exit_code == 2
-    assert "chunk_tokens" in one_line_error(result)
+    line = one_line_error(result)
+    assert "SOUNDING_CHUNK_TOKENS='lots' is not valid: expected a whole number" in line
+    assert "http" not in line and "pydantic" not in line
+
+
+@pytest.mark.parametrize(
+    ("name", "value", "expected"),
+    [
+        ("SOUNDING_PORT", "0", "expected at least 1"),
+        ("SOUNDING_PRECISION", "fp16", "expected one of 'auto', 'fp32' or 'bf16'"),
+        ("SOUNDING_REQUIRE_KEYS", "maybe", "expected true or false"),
+    ],
+)
+def test_bad_settings_name_the_variable_and_the_form(
+    monkeypatch: pytest.MonkeyPatch, name: str, value: str, expected: str
+) -> None:
+    monkeypatch.setenv(name, value)
+    result = sounding("check")
+    assert result.exit_code == 2
+    assert f"{name}={value!r} is not valid: {expected}" in one_line_error(result)
 
 
 @pytest.mark.parametrize(
