@@ -19,6 +19,7 @@ from sounding.indexer.judgments import JudgmentStore
 from .auth import open_keys, require
 from .engine import Engine
 from .limits import RequestLimits
+from .mcp_http import router as mcp_router
 from .metrics import RequestObserver, ServiceMetrics, route_template
 from .routes import collections, context, documents, feedback, health, page, search
 from .routes import metrics as metrics_route
@@ -85,6 +86,7 @@ def create_app(
     app.add_middleware(RequestObserver, metrics=app.state.metrics)
     for module in (search, context, documents, collections, feedback, health, page):
         app.include_router(module.router)
+    app.include_router(mcp_router)  # MCP tools at /mcp: the same keys, limits and logs
     # Totals and latencies only (no ids, titles or text), but still for key holders.
     app.include_router(metrics_route.router, dependencies=[Depends(require("read"))])
     app.mount("/static", page.static_files(), name="static")

@@ -26,6 +26,7 @@ import click
 from sounding.indexer.errors import SoundingError
 
 from . import evaluate, index, keys, search, serve
+from . import mcp as mcp_cli
 from ._common import example
 
 EXIT_USAGE = 2
@@ -98,7 +99,7 @@ def cli() -> None:
     pass
 
 
-for _module in (index, search, serve, evaluate, keys):
+for _module in (index, search, serve, evaluate, keys, mcp_cli):
     for _command in _module.COMMANDS:
         cli.add_command(_command)
 
