@@ -53,6 +53,14 @@ def search_page() -> FileResponse:
     )
 
 
+@router.get("/favicon.ico", include_in_schema=False)
+def favicon() -> FileResponse:
+    """The page's icon (SVG, which browsers take at this address too); no key, no data."""
+    return FileResponse(
+        STATIC_DIR / "favicon.svg", media_type="image/svg+xml", headers=PAGE_HEADERS
+    )
+
+
 class _StaticFiles(StaticFiles):
     """Static files with the page's headers, so ``/static/index.html`` is as strict as ``/``."""
 

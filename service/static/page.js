@@ -2,7 +2,8 @@
 // GET /documents/{id}). No framework and nothing from outside this service.
 //
 // Untrusted text (passages, titles, sources) only ever reaches the page as text nodes
-// (textContent / createTextNode); highlights are <mark> elements built around those nodes.
+// (textContent / createTextNode); highlights, tables and the passage found are elements
+// built around those nodes.
 // Nothing from the service is ever parsed as HTML, so a passage holding markup shows as
 // markup, never runs.
 "use strict";
@@ -11,13 +12,6 @@
   const KEY_STORE = "sounding.key";
   const RESULTS = 10;
   const PER_DOCUMENT = 3;
-  // Words too common to be worth highlighting (a short English list; common practice).
-  const STOPWORDS = new Set(
-    ("a an and are as at be by can do does for from has have how i if in into is it its " +
-     "me my no not of on or our so than that the their them then there these they this to " +
-     "us was we what when where which who why will with you your").split(" ")
-  );
-  const WORD = /[\p{L}\p{N}]+/gu;
 
   const $ = (id) => document.getElementById(id);
   const el = {
@@ -26,7 +20,7 @@
     keyPanel: $("key-panel"), key: $("key"), keyForget: $("key-forget"),
     status: $("status"), error: $("error"), results: $("results"), list: $("result-list"),
     doc: $("document"), back: $("back"), docTitle: $("doc-title"), docMeta: $("doc-meta"),
-    docChunks: $("doc-chunks"),
+    docChunks: $("doc-chunks"), activeTags: $("active-tags"),
   };
 
   // ---- access key (sessionStorage: gone when the tab closes) ----
@@ -89,8 +83,8 @@
     switch (err.status) {
       case 0: return "Could not reach the search service. Check that it is running.";
       case 401: return memoryKey
-        ? "The access key was not accepted. Enter a valid key below."
-        : "This service needs an access key. Enter it below.";
+        ? "The access key was not accepted. Enter a valid key in the Access key field."
+        : "This service needs an access key. Enter it in the Access key field.";
       case 403: return "Your access key does not allow this" + detail + ".";
       case 404: return what === "document"
         ? "That document is not in the index, or your key may not read it."
@@ -121,52 +115,7 @@
     document.body.setAttribute("aria-busy", String(busy));
   }
 
-  // ---- highlighting: split text into plain and matching runs, built as DOM nodes ----
-
-  /** Words of the query worth highlighting, lower-cased, longest first. */
-  function queryTerms(query) {
-    const seen = new Set();
-    for (const match of query.toLowerCase().matchAll(WORD)) {
-      let word = match[0];
-      if (STOPWORDS.has(word) || word.length < 2) continue;
-      // "valves" should light up "valve": drop a plural s (matching is by word prefix).
-      if (word.length > 3 && word.endsWith("s") && !word.endsWith("ss")) word = word.slice(0, -1);
-      seen.add(word);
-    }
-    return [...seen].sort((a, b) => b.length - a.length);
-  }
-
-  /** Runs of ``text``: [{text, mark}], mark true for words starting with a query term. */
-  function highlightRuns(text, terms) {
-    const runs = [];
-    let last = 0;
-    if (terms.length) {
-      for (const match of text.matchAll(WORD)) {
-        const lower = match[0].toLowerCase();
-        if (!terms.some((t) => lower.startsWith(t))) continue;
-        if (match.index > last) runs.push({ text: text.slice(last, match.index), mark: false });
-        runs.push({ text: match[0], mark: true });
-        last = match.index + match[0].length;
-      }
-    }
-    if (last < text.length) runs.push({ text: text.slice(last), mark: false });
-    return runs;
-  }
-
-  function highlighted(tag, className, text, terms) {
-    const node = document.createElement(tag);
-    if (className) node.className = className;
-    for (const run of highlightRuns(text, terms)) {
-      if (run.mark) {
-        const mark = document.createElement("mark");
-        mark.textContent = run.text;
-        node.appendChild(mark);
-      } else {
-        node.appendChild(document.createTextNode(run.text));
-      }
-    }
-    return node;
-  }
+  const renderText = window.soundingRender.renderText;
 
   function textNode(tag, className, text) {
     const node = document.createElement(tag);
@@ -175,82 +124,19 @@
     return node;
   }
 
-  // ---- page state lives in the URL fragment, so Back and bookmarks work ----
-
-  function readHash() {
-    return new URLSearchParams(location.hash.replace(/^#/, ""));
+  function isoDate(seconds) {
+    const n = Number(seconds);
+    if (!Number.isFinite(n) || n <= 0) return "";
+    return new Date(n * 1000).toISOString().slice(0, 10);
   }
 
-  function searchHash(query, mode, collection) {
-    const p = new URLSearchParams({ q: query, mode });
-    if (collection) p.set("collection", collection);
-    return "#" + p.toString();
+  function dateNode(seconds) {
+    const day = isoDate(seconds);
+    if (!day) return null;
+    const node = textNode("time", "date", day);
+    node.dateTime = day;
+    return node;
   }
-
-  function documentHash(documentId, chunkId) {
-    const p = new URLSearchParams({ doc: documentId });
-    if (chunkId !== undefined && chunkId !== null) p.set("chunk", String(chunkId));
-    return "#" + p.toString();
-  }
-
-  let lastSearchHash = "";
-  let lastTerms = [];
-
-  // ---- search ----
-
-  async function runSearch(query, mode, collection) {
-    clearError();
-    setBusy(true);
-    el.doc.hidden = true;
-    el.status.textContent = "Searching…";
-    const body = { query, k: RESULTS, mode, max_per_document: PER_DOCUMENT };
-    if (collection) body.collections = [collection];
-    let data;
-    try {
-      data = await api("POST", "/search", body);
-    } catch (err) {
-      report(err, "search");
-      el.results.hidden = true;
-      return;
-    }
-    lastTerms = queryTerms(query);
-    renderResults(data.results || [], query);
-    setBusy(false);
-  }
-
-  function renderResults(results, query) {
-    el.list.replaceChildren();
-    for (const r of results) {
-      const item = document.createElement("li");
-      item.className = "result";
-      const heading = document.createElement("h2");
-      const link = document.createElement("a");
-      link.href = documentHash(r.document_id, r.chunk_id);
-      link.textContent = r.title || r.document_id;
-      link.className = "result-link";
-      heading.appendChild(link);
-      item.appendChild(heading);
-      if (r.trail && r.trail.length) {
-        item.appendChild(textNode("p", "trail", r.trail.join(" › ")));
-      }
-      item.appendChild(highlighted("p", "passage", r.text || "", lastTerms));
-      const meta = document.createElement("p");
-      meta.className = "meta";
-      meta.appendChild(textNode("span", "score", "score " + Number(r.score).toFixed(3)));
-      if (r.collection) meta.appendChild(textNode("span", "collection", r.collection));
-      meta.appendChild(textNode("span", "source", r.source || r.document_id));
-      if (r.page) meta.appendChild(textNode("span", "page", "page " + r.page));
-      item.appendChild(meta);
-      el.list.appendChild(item);
-    }
-    el.results.hidden = false;
-    const n = results.length;
-    el.status.textContent = n
-      ? n + (n === 1 ? " passage" : " passages") + " for “" + query + "”"
-      : "Nothing found for “" + query + "”. Try other words or the Meaning ranking.";
-  }
-
-  // ---- one document, scrolled to the passage ----
 
   function safeUrl(value) {
     // Only web links: a javascript: or data: URL from a document's metadata never becomes a link.
@@ -263,25 +149,193 @@
     }
   }
 
-  function documentPath(documentId) {
-    // Ids are paths relative to the indexed folder: keep their slashes, escape the rest.
-    return "/documents/" + documentId.split("/").map(encodeURIComponent).join("/");
+  function originalLink(url, id) {
+    const href = safeUrl(url);
+    if (!href) return null;
+    const a = document.createElement("a");
+    a.href = href;
+    a.textContent = "Open the original";
+    a.rel = "noopener noreferrer";
+    a.className = "original";
+    if (id) a.id = id;
+    return a;
   }
 
-  async function showDocument(documentId, chunkId) {
+  // ---- page state lives in the URL fragment, so Back, bookmarks and new tabs work ----
+  // q, mode, collection, tag (repeated), and for a document view doc and chunk as well.
+
+  function readHash() {
+    return new URLSearchParams(location.hash.replace(/^#/, ""));
+  }
+
+  function readState() {
+    const p = readHash();
+    const mode = p.get("mode");
+    return {
+      q: (p.get("q") || "").trim(),
+      mode: [...el.mode.options].some((o) => o.value === mode) ? mode : "hybrid",
+      collection: p.get("collection") || "",
+      tags: [...new Set(p.getAll("tag").filter(Boolean))],
+      doc: p.get("doc"),
+      chunk: p.get("chunk"),
+    };
+  }
+
+  function stateHash(state) {
+    const p = new URLSearchParams();
+    if (state.q) { p.set("q", state.q); p.set("mode", state.mode); }
+    if (state.collection) p.set("collection", state.collection);
+    for (const tag of state.tags || []) p.append("tag", tag);
+    if (state.doc) p.set("doc", state.doc);
+    if (state.doc && state.chunk !== undefined && state.chunk !== null) p.set("chunk", String(state.chunk));
+    return "#" + p.toString();
+  }
+
+  function go(state) {
+    const hash = stateHash(state);
+    if (location.hash === hash) route(); else location.hash = hash;
+  }
+
+  let current = readState();
+
+  // ---- search ----
+
+  async function runSearch(state) {
+    clearError();
+    setBusy(true);
+    el.doc.hidden = true;
+    el.status.textContent = "Searching…";
+    const body = { query: state.q, k: RESULTS, mode: state.mode, max_per_document: PER_DOCUMENT };
+    if (state.collection) body.collections = [state.collection];
+    if (state.tags.length) body.tags = state.tags;
+    let data;
+    try {
+      data = await api("POST", "/search", body);
+    } catch (err) {
+      report(err, "search");
+      el.results.hidden = true;
+      return;
+    }
+    renderResults(data.results || [], state);
+    setBusy(false);
+  }
+
+  function renderActiveTags(state) {
+    el.activeTags.replaceChildren();
+    el.activeTags.hidden = !state.tags.length;
+    if (!state.tags.length) return;
+    el.activeTags.appendChild(textNode("span", "label", "Only tagged: "));
+    for (const tag of state.tags) {
+      const b = textNode("button", "tag active", tag + " ×");
+      b.type = "button";
+      b.setAttribute("aria-label", "Remove the tag filter " + tag);
+      b.addEventListener("click", () => go({ ...state, doc: null, tags: state.tags.filter((t) => t !== tag) }));
+      el.activeTags.appendChild(b);
+    }
+  }
+
+  function tagButtons(tags, state) {
+    const list = document.createElement("ul");
+    list.className = "tags";
+    list.setAttribute("aria-label", "Tags");
+    for (const tag of tags || []) {
+      const item = document.createElement("li");
+      const b = textNode("button", "tag", tag);
+      b.type = "button";
+      b.title = "Only results tagged " + tag;
+      b.addEventListener("click", () => {
+        const tagsNow = state.tags.includes(tag) ? state.tags : [...state.tags, tag];
+        go({ ...state, doc: null, chunk: null, tags: tagsNow, q: state.q || el.q.value.trim() });
+      });
+      item.appendChild(b);
+      list.appendChild(item);
+    }
+    return list;
+  }
+
+  function renderResults(results, state) {
+    renderActiveTags(state);
+    el.list.replaceChildren();
+    const top = Math.max(0, ...results.map((r) => Number(r.score) || 0));
+    results.forEach((r, i) => {
+      const item = document.createElement("li");
+      item.className = "result";
+      const heading = document.createElement("h2");
+      heading.appendChild(textNode("span", "rank", (i + 1) + "."));
+      const link = document.createElement("a");
+      link.href = stateHash({ ...state, doc: r.document_id, chunk: r.chunk_id });
+      link.textContent = r.title || r.document_id;
+      link.className = "result-link";
+      heading.appendChild(link);
+      item.appendChild(heading);
+      if (r.trail && r.trail.length) {
+        item.appendChild(textNode("p", "trail", r.trail.join(" › ")));
+      }
+      item.appendChild(renderText("passage", r.text || "", r.highlights || [], null).box);
+      const meta = document.createElement("div");
+      meta.className = "meta";
+      // Raw scores (RRF, BM25, cosine) mean nothing to a reader: order, and a bar
+      // relative to the top result. The API keeps the scores.
+      const strength = top > 0 ? Math.max(0, Number(r.score) || 0) / top : 0;
+      const meter = document.createElement("meter");
+      meter.className = "strength";
+      meter.min = 0; meter.max = 1; meter.value = strength;
+      const pct = Math.round(strength * 100);
+      meter.title = "Match strength: " + pct + "% of the top result";
+      meter.setAttribute("aria-label", "Match strength " + pct + "% of the top result");
+      meter.textContent = pct + "%";
+      meta.appendChild(meter);
+      const date = dateNode(r.modified);
+      if (date) meta.appendChild(date);
+      if (r.collection) meta.appendChild(textNode("span", "collection", r.collection));
+      meta.appendChild(textNode("span", "source", r.source || r.document_id));
+      if (r.page) meta.appendChild(textNode("span", "page", "page " + r.page));
+      const original = originalLink(r.url);
+      if (original) meta.appendChild(original);
+      item.appendChild(meta);
+      if (r.tags && r.tags.length) item.appendChild(tagButtons(r.tags, state));
+      el.list.appendChild(item);
+    });
+    el.results.hidden = false;
+    const n = results.length;
+    const narrowed = state.tags.length ? " tagged " + state.tags.join(" or ") : "";
+    el.status.textContent = n
+      ? n + (n === 1 ? " passage" : " passages") + " for “" + state.q + "”" + narrowed
+      : "Nothing found for “" + state.q + "”" + narrowed + ". Try other words or the Meaning ranking.";
+  }
+
+  // ---- one document: its text once, the passage found marked and scrolled to ----
+
+  function documentPath(documentId, query) {
+    // Ids are paths relative to the indexed folder: keep their slashes, escape the rest.
+    const path = "/documents/" + documentId.split("/").map(encodeURIComponent).join("/");
+    return query ? path + "?" + new URLSearchParams({ highlight: query }).toString() : path;
+  }
+
+  function documentSections(doc) {
+    if (Array.isArray(doc.sections) && doc.sections.length) return doc.sections;
+    // An older service: one section per chunk.
+    return (doc.chunks || []).map((c) => ({
+      trail: c.trail, page: c.page, text: c.text || "", highlights: [],
+      chunks: [{ chunk_id: c.chunk_id, start: 0, end: (c.text || "").length }],
+    }));
+  }
+
+  async function showDocument(state) {
     clearError();
     setBusy(true);
     el.status.textContent = "Opening the document…";
     let doc;
     try {
-      doc = await api("GET", documentPath(documentId));
+      doc = await api("GET", documentPath(state.doc, state.q));
     } catch (err) {
       report(err, "document");
       return;
     }
     el.results.hidden = true;
-    el.back.href = lastSearchHash || "#";
-    el.back.textContent = lastSearchHash ? "← Back to results" : "← New search";
+    const back = { ...state, doc: null, chunk: null };
+    el.back.href = stateHash(back);
+    el.back.textContent = state.q ? "← Back to results" : "← New search";
     el.docTitle.textContent = doc.title || doc.id;
     el.docMeta.replaceChildren();
     const addMeta = (label, value) => {
@@ -292,31 +346,29 @@
     };
     if (doc.collection) addMeta("Collection", doc.collection);
     addMeta("Source", doc.source || doc.id);
-    const original = safeUrl(doc.metadata && doc.metadata.url);
-    if (original) {
-      const a = document.createElement("a");
-      a.href = original;
-      a.textContent = original;
-      a.rel = "noopener noreferrer";
-      a.id = "original";
-      addMeta("Original", a);
-    }
+    const date = dateNode(doc.modified);
+    if (date) addMeta("Modified", date);
+    if (doc.tags && doc.tags.length) addMeta("Tags", tagButtons(doc.tags, back));
+    const original = originalLink(doc.url || (doc.metadata && doc.metadata.url), "original");
+    if (original) addMeta("Original", original);
     el.docChunks.replaceChildren();
     let target = null;
-    for (const c of doc.chunks || []) {
+    let lastTrail = null;
+    for (const s of documentSections(doc)) {
       const section = document.createElement("section");
-      section.className = "chunk";
-      section.id = "chunk-" + c.chunk_id;
-      if (c.trail && c.trail.length) {
-        section.appendChild(textNode("h3", "trail", c.trail.join(" › ")));
-      }
-      section.appendChild(highlighted("p", "passage", c.text || "", lastTerms));
-      if (c.page) section.appendChild(textNode("p", "meta", "page " + c.page));
-      if (String(c.chunk_id) === chunkId) {
-        section.classList.add("target");
-        section.tabIndex = -1;
-        section.setAttribute("aria-label", "The passage found");
-        target = section;
+      section.className = "doc-section";
+      const trail = (s.trail || []).join(" › ");
+      if (trail && trail !== lastTrail) section.appendChild(textNode("h3", "trail", trail));
+      lastTrail = trail;
+      if (s.page) section.appendChild(textNode("p", "meta page", "page " + s.page));
+      const span = (s.chunks || []).find((c) => String(c.chunk_id) === String(state.chunk));
+      const rendered = renderText("text", s.text || "", s.highlights || [], span ? [span.start, span.end] : null);
+      section.appendChild(rendered.box);
+      if (rendered.found && !target) {
+        target = rendered.found;
+        target.id = "found";
+        target.tabIndex = -1;
+        target.setAttribute("aria-label", "The passage found");
       }
       el.docChunks.appendChild(section);
     }
@@ -342,7 +394,7 @@
       }
       return;  // the filter stays hidden; searching still works across everything visible
     }
-    const chosen = el.collection.value || readHash().get("collection") || "";
+    const chosen = readState().collection || el.collection.value || "";
     el.collection.replaceChildren(new Option("All collections", ""));
     for (const c of (data && data.collections) || []) {
       const label = c.name + (typeof c.documents === "number" ? " (" + c.documents + ")" : "");
@@ -355,33 +407,38 @@
 
   // ---- routing ----
 
+  /** Put the state's query, ranking and collection in the form, so a bookmark shows them. */
+  function fillForm(state) {
+    el.q.value = state.q;
+    el.mode.value = state.mode;
+    if ([...el.collection.options].some((o) => o.value === state.collection)) {
+      el.collection.value = state.collection;
+    }
+  }
+
   function route() {
-    const p = readHash();
-    if (p.has("doc")) {
-      showDocument(p.get("doc"), p.get("chunk"));
+    const state = readState();
+    current = state;
+    fillForm(state);
+    if (state.doc) {
+      showDocument(state);
       return;
     }
-    const query = (p.get("q") || "").trim();
-    if (!query) {
+    if (!state.q) {
       el.results.hidden = true;
       el.doc.hidden = true;
       el.status.textContent = "";
       return;
     }
-    el.q.value = query;
-    const mode = p.get("mode");
-    if (mode && [...el.mode.options].some((o) => o.value === mode)) el.mode.value = mode;
-    if (p.has("collection")) el.collection.value = p.get("collection");
-    lastSearchHash = location.hash;
-    runSearch(query, el.mode.value, el.collection.value);
+    runSearch(state);
   }
 
   el.form.addEventListener("submit", (event) => {
     event.preventDefault();
     const query = el.q.value.trim();
     if (!query) { el.q.focus(); return; }
-    const hash = searchHash(query, el.mode.value, el.collection.value);
-    if (location.hash === hash) route(); else location.hash = hash;
+    // A new query keeps the tag filter; another collection or ranking is part of it.
+    go({ q: query, mode: el.mode.value, collection: el.collection.value, tags: current.tags });
   });
 
   el.keyPanel.addEventListener("submit", (event) => {
@@ -392,8 +449,9 @@
     clearError();
     el.status.textContent = memoryKey ? "Key saved for this tab." : "";
     loadCollections();
-    if (el.q.value.trim()) route();
-    el.q.focus();
+    // Whatever the address holds (a search, a document, filters) now that the key is here.
+    route();
+    if (!readState().doc) el.q.focus();
   });
 
   el.keyForget.addEventListener("click", () => {
@@ -411,7 +469,4 @@
   loadCollections();
   route();
   if (!readHash().has("doc")) el.q.focus();
-
-  // For tests and the curious: the pure highlighting step.
-  window.soundingPage = { queryTerms, highlightRuns };
 })();

@@ -44,10 +44,18 @@ ROOTS = {
             "unbolting the flange of the reservoir valve.\n\n## Testing\n\nOpen the valve "
             "slowly and watch the pressure gauge on the outlet main.\n"
         ),
-        "runbooks/pump-station.md": (
-            "---\ntitle: Pump station restart\nurl: \"javascript:alert('pump')\"\n---\n"
-            "# Pump station restart\n\n## After a power cut\n\nReset the breaker, then start "
-            "the duty pump before the standby pump.\n"
+        "guides/incident-review.md": (
+            "---\ntitle: Incident reviews\ntags: [incident, process]\n---\n# Incident reviews\n\n"
+            "## Writing\n\n*Writing a post-incident review* starts within **two days**; quote "
+            "the alarm code ERR-4472 and the ERR-4471 before it.\n\n- Timeline first\n"
+            "- Then causes\n\n| Record type | Kept for |\n|---|---|\n| Review | 6 years |\n"
+            "| Alarm log | 2 years |\n"
+        ),
+        "guides/transport.md": (
+            "# Transport of spares\n\n## Modes\n\n3. Rail and road\n\nRail is the default for "
+            "bulk transfers between the depots. "
+            + "Road is used when the rail link is closed for maintenance works. " * 12
+            + "\n"
         ),
         "hr/salary-bands.md": (
             "---\ntitle: Salary bands for field staff\ngroups: [hr]\n---\n"
@@ -56,6 +64,11 @@ ROOTS = {
         ),
     },
     "handbook": {
+        "pump-station.md": (
+            "---\ntitle: Pump station restart\nurl: \"javascript:alert('pump')\"\n---\n"
+            "# Pump station restart\n\n## After a power cut\n\nReset the breaker, then start "
+            "the duty pump before the standby pump.\n"
+        ),
         "kiosk.txt": (
             "Kiosk printer notes\n\nThe kiosk printer jams when the tray is overfilled. "
             "Markup stays text: <b>bold</b> <img src=x onerror=\"document.title='pwned'\"> "
@@ -69,6 +82,8 @@ ROOTS = {
 }
 RESTRICTED = "hr/salary-bands.md"
 RESTRICTED_TITLE = "Salary bands for field staff"
+MODIFIED = 1773446400  # 2026-03-14 00:00 UTC, the pages' modification time
+WIKI_URL = "https://wiki.example.org/{stem}"
 
 
 def _browser_or_skip() -> None:
@@ -100,12 +115,17 @@ def site(tmp_path_factory: pytest.TempPathFactory) -> Iterator[dict]:
             path = root / rel
             path.parent.mkdir(parents=True, exist_ok=True)
             path.write_text(text)
+            os.utime(path, (MODIFIED, MODIFIED))
         roots.append(root)
     settings = ServiceSettings(
         index_dir=base / "index",
         reload_check_seconds=0,
         max_query_chars=200,
         require_keys=True,
+        # Small windows, so the long page is cut in overlapping chunks.
+        chunk_tokens=48,
+        chunk_overlap=12,
+        collection_urls={"wiki": WIKI_URL},
     )
     embedder = HashingEmbedder(32, seed=3)
     refresh_index(roots, settings, embedder)
@@ -267,7 +287,8 @@ def test_static_files_load_nothing_from_outside_the_service() -> None:
     files = sorted(p for p in STATIC_DIR.iterdir() if p.is_file())
     assert {p.name for p in files} >= {"index.html", "page.js", "page.css"}
     for path in files:
-        text = path.read_text()
+        # The SVG icon's namespace is a name, never fetched.
+        text = path.read_text().replace('xmlns="http://www.w3.org/2000/svg"', "")
         assert "://" not in text, f"{path.name} names an absolute URL"
         assert "@import" not in text and "@font-face" not in text, path.name
         assert "innerHTML" not in text and "insertAdjacentHTML" not in text, path.name
@@ -309,8 +330,18 @@ def test_search_results_and_source_link_in_chromium(site: dict, browser) -> None
     # Query words are highlighted; stopwords ("the") are not.
     assert {m.lower() for m in top["marks"]} >= {"unbolting", "reservoir", "valve", "flange"}
     assert "the" not in {m.lower() for m in top["marks"]}
-    scores = [s.text for s in _css(driver, "#result-list .score")]
-    assert all(re.fullmatch(r"score -?\d+\.\d{3}", s) for s in scores), scores
+    # Order and a strength beside the top result, never raw fused scores.
+    ranks = [r.text for r in _css(driver, "#result-list .rank")]
+    assert ranks == [f"{i}." for i in range(1, len(results) + 1)]
+    strengths = [float(m.get_attribute("value")) for m in _css(driver, "#result-list meter")]
+    assert strengths[0] == 1 and all(0 <= v <= 1 for v in strengths)
+    assert "0.0" not in _by_id(driver, "results").text
+    # Relative sources, dates, and the link to the original page (collection_urls).
+    assert _css(driver, "#result-list .source")[0].text == "runbooks/reservoir-valve.md"
+    assert not any(s.text.startswith("/") for s in _css(driver, "#result-list .source"))
+    assert _css(driver, "#result-list .date")[0].text == "2026-03-14"
+    link = _css(driver, "#result-list .result")[0].find_element("css selector", "a.original")
+    assert link.get_attribute("href") == "https://wiki.example.org/runbooks/reservoir-valve"
     _screenshot(driver, "results")
 
     # Open the source: the document view, scrolled to and focused on the passage found.
@@ -318,8 +349,10 @@ def test_search_results_and_source_link_in_chromium(site: dict, browser) -> None
     _wait(driver, lambda d: _by_id(d, "document").is_displayed(), "the document did not open")
     assert "doc=runbooks%2Freservoir-valve.md" in driver.current_url
     assert _by_id(driver, "doc-title").text == "Reservoir valve replacement"
-    target = _css(driver, "#doc-chunks .chunk.target")
-    assert len(target) == 1 and "flange" in target[0].text
+    target = _css(driver, "#doc-chunks #found")
+    # The passage's text is marked (in pieces around highlights); the first piece has focus.
+    marked = "".join(e.text for e in _css(driver, "#doc-chunks .found"))
+    assert len(target) == 1 and "flange" in marked and "pressure gauge" not in marked
     assert driver.switch_to.active_element == target[0]
     assert driver.execute_script(
         "const r = arguments[0].getBoundingClientRect();"
@@ -343,7 +376,7 @@ def test_search_results_and_source_link_in_chromium(site: dict, browser) -> None
 
 def test_a_document_url_that_is_not_a_web_link_is_not_linked(site: dict, browser) -> None:
     _open(browser, site, "staff")
-    browser.get(site["url"] + "/#doc=runbooks%2Fpump-station.md")
+    browser.get(site["url"] + "/#doc=pump-station.md")
     _wait(browser, lambda d: _by_id(d, "document").is_displayed(), "the document did not open")
     assert _by_id(browser, "doc-title").text == "Pump station restart"
     assert _css(browser, "#original") == []
@@ -353,7 +386,10 @@ def test_a_document_url_that_is_not_a_web_link_is_not_linked(site: dict, browser
 def test_passage_markup_is_shown_as_text_never_run(site: dict, browser) -> None:
     _open(browser, site, "staff")
     results = _search(browser, "kiosk printer bold amp", mode="lexical")
-    kiosk = next(r for r in results if r["title"] == "Kiosk printer notes")
+    # Small windows here: the note may come in more than one passage.
+    kiosk = {
+        "passage": " ".join(r["passage"] for r in results if r["title"] == "Kiosk printer notes")
+    }
     assert "<b>bold</b>" in kiosk["passage"] and "onerror=" in kiosk["passage"]
     assert _css(browser, "#result-list .passage b, #result-list .passage img") == []
     assert browser.title != "pwned"
@@ -379,13 +415,13 @@ def test_restricted_document_hidden_without_its_group(site: dict, browser) -> No
     assert not _by_id(browser, "document").is_displayed()
     # The collection filter counts only what this key may see.
     counts = [o.text for o in _css(browser, "#collection option")]
-    assert "wiki (2)" in counts, counts
+    assert "wiki (3)" in counts, counts
 
     _open(browser, site, "hr")
     results = _search(browser, query, mode="lexical")
     assert results[0]["title"] == RESTRICTED_TITLE
     assert "zebracorn" in {m.lower() for m in results[0]["marks"]}
-    assert "wiki (3)" in [o.text for o in _css(browser, "#collection option")]
+    assert "wiki (4)" in [o.text for o in _css(browser, "#collection option")]
     _screenshot(browser, "restricted-shown")
 
 
@@ -393,7 +429,7 @@ def test_collection_filter_limits_results(site: dict, browser) -> None:
     _open(browser, site, "staff")
     results = _search(browser, "zebracorn kiosk valve pump", mode="lexical", collection="handbook")
     titles = {r["title"] for r in results}
-    assert titles and titles <= {"Kiosk printer notes", "Zebracorn mascot"}
+    assert titles and titles <= {"Kiosk printer notes", "Zebracorn mascot", "Pump station restart"}
     assert "collection=handbook" in browser.current_url
 
 
@@ -467,6 +503,133 @@ def test_no_index_is_explained_and_keys_may_be_off_on_loopback(tmp_path: Path, b
         assert error.startswith("Search is not available right now") and "no index" in error
         assert not _by_id(browser, "key-panel").is_displayed()
         assert not _by_id(browser, "key-toggle").is_displayed()
+
+
+def _document_json(site: dict, doc_id: str) -> dict:
+    headers = {"Authorization": "Bearer " + site["keys"]["staff"]}
+    r = httpx.get(f"{site['url']}/documents/{doc_id}", headers=headers)
+    assert r.status_code == 200
+    return r.json()
+
+
+def test_favicon_is_served_without_a_key(site: dict) -> None:
+    r = httpx.get(site["url"] + "/favicon.ico")
+    assert r.status_code == 200 and r.headers["content-type"].startswith("image/svg+xml")
+    assert r.headers["content-security-policy"]
+
+
+def test_a_bookmarked_document_opens_in_a_new_tab_after_the_key(site: dict, browser) -> None:
+    from selenium.webdriver.common.keys import Keys
+
+    doc = _document_json(site, "guides/transport.md")
+    assert len(doc["chunks"]) > 2, "the long page should be cut in overlapping windows"
+    chunk = doc["chunks"][2]
+    _open(browser, site, None)  # a new tab: no key in its session storage
+    browser.get(
+        site["url"] + "/#q=rail+road+maintenance&mode=lexical&tag=process"
+        f"&doc=guides%2Ftransport.md&chunk={chunk['chunk_id']}"
+    )
+    _wait(browser, lambda d: _by_id(d, "key-panel").is_displayed(), "no key prompt")
+    assert "Access key field" in _by_id(browser, "error").text  # not "below": it is above
+    _by_id(browser, "key").send_keys(site["keys"]["staff"], Keys.ENTER)
+    _wait(browser, lambda d: _by_id(d, "document").is_displayed(), "the bookmark stayed empty")
+    _wait(
+        browser,
+        lambda d: d.execute_script("return document.body.getAttribute('aria-busy')") == "false",
+        "the page stayed busy",
+    )
+    # Every part of the address is restored: the query and ranking in the form too.
+    assert _by_id(browser, "q").get_attribute("value") == "rail road maintenance"
+    assert _by_id(browser, "mode").get_attribute("value") == "lexical"
+    assert _by_id(browser, "doc-title").text == "Transport of spares"
+    # The text once, however the windows overlapped; the passage found marked in it.
+    body = _by_id(browser, "doc-chunks").text
+    assert body.count("Rail is the default") == 1 and body.count("3. Rail and road") == 1
+    assert body.count("closed for maintenance works") == 12
+    found = _by_id(browser, "found")
+    assert found.text.strip() and found.text.strip() in chunk["text"]
+    assert browser.switch_to.active_element == found
+    assert {m.text.lower() for m in _css(browser, "#doc-chunks mark")} >= {"rail", "road"}
+    _screenshot(browser, "bookmarked-document")
+    # Back keeps the query and the tag filter of the address.
+    _by_id(browser, "back").click()
+    _wait(browser, lambda d: _by_id(d, "results").is_displayed(), "Back did not show results")
+    assert "tag=process" in browser.current_url
+    assert "process" in _by_id(browser, "active-tags").text
+
+
+def test_clean_text_tags_dates_and_whole_token_highlights(site: dict, browser) -> None:
+    _open(browser, site, "staff")
+    results = _search(browser, "ERR-4472 post-incident review record", mode="lexical")
+    review = next(r for r in results if r["title"] == "Incident reviews")
+    # Clean text: no emphasis markers, list items as bullets, the table as a table.
+    assert "*" not in review["passage"] and "|" not in review["passage"]
+    assert "Writing a post-incident review starts within two days" in review["passage"]
+    assert "• Timeline first" in review["passage"]
+    item = next(
+        i
+        for i in _css(browser, "#result-list .result")
+        if i.find_element("css selector", ".result-link").text == "Incident reviews"
+    )
+    cells = [c.text for c in item.find_elements("css selector", ".passage table td")]
+    assert cells[:4] == ["Record type", "Kept for", "Review", "6 years"]
+    # Whole tokens as the lexical ranking counts them: ERR-4472 is one highlight.
+    assert "ERR-4472" in review["marks"]
+    assert all(m.upper() != "ERR-" for m in review["marks"])
+    assert item.find_element("css selector", ".date").text == "2026-03-14"
+    original = item.find_element("css selector", "a.original").get_attribute("href")
+    assert original == "https://wiki.example.org/guides/incident-review"
+    assert item.find_element("css selector", ".source").text == "guides/incident-review.md"
+    _screenshot(browser, "clean-text")
+
+    # A tag narrows the search to pages with it.
+    tag = next(b for b in item.find_elements("css selector", "button.tag") if b.text == "incident")
+    tag.click()
+    _wait(browser, lambda d: "tag=incident" in d.current_url, "the tag was not added")
+    _wait(
+        browser,
+        lambda d: (
+            _by_id(d, "active-tags").is_displayed()
+            and d.execute_script("return document.body.getAttribute('aria-busy')") == "false"
+        ),
+        "the tag filter is not shown",
+    )
+    titles = [t.text for t in _css(browser, "#result-list .result-link")]
+    assert titles == ["Incident reviews"]
+    _screenshot(browser, "tag-filter")
+    _css(browser, "#active-tags button")[0].click()
+    _wait(browser, lambda d: "tag=" not in d.current_url, "the tag filter was not removed")
+    _wait(
+        browser,
+        lambda d: (
+            not _by_id(d, "active-tags").is_displayed()
+            and d.execute_script("return document.body.getAttribute('aria-busy')") == "false"
+        ),
+        "the results did not come back without the tag",
+    )
+
+    # The document view: clean text, the table as a table, the source relative.
+    _css(browser, "#result-list .result-link")[0].click()
+    _wait(browser, lambda d: _by_id(d, "document").is_displayed(), "the document did not open")
+    text = _by_id(browser, "doc-chunks").text
+    assert "*" not in text and "|" not in text
+    assert "2026-03-14" in _by_id(browser, "doc-meta").text
+    assert "/tmp" not in _by_id(browser, "doc-meta").text
+
+
+def test_document_view_readable_on_a_phone(site: dict, browser) -> None:
+    browser.set_window_size(390, 844)
+    try:
+        _open(browser, site, "staff")
+        browser.get(site["url"] + "/#q=record+type&mode=lexical&doc=guides%2Fincident-review.md")
+        _wait(browser, lambda d: _by_id(d, "document").is_displayed(), "no document")
+        widths = browser.execute_script(
+            "return [document.documentElement.scrollWidth, document.documentElement.clientWidth]"
+        )
+        assert widths[0] <= widths[1], f"the page scrolls sideways on a phone: {widths}"
+        _screenshot(browser, "phone-document")
+    finally:
+        browser.set_window_size(1200, 900)
 
 
 def test_no_script_or_policy_errors_in_the_console(site: dict, browser) -> None:
