@@ -53,8 +53,19 @@ window.soundingRender = (function () {
     return out;
   }
 
+  /** Spans from the service count code points; JavaScript strings count UTF-16 units. */
+  function toUnits(text, spans) {
+    if (!/[\uD800-\uDFFF]/.test(text)) return spans;
+    const units = [0];
+    for (const ch of text) units.push(units[units.length - 1] + ch.length);
+    const at = (i) => units[Math.min(i, units.length - 1)];
+    return spans.map(([a, b]) => [at(a), at(b)]);
+  }
+
   /** A container of text's blocks (paragraphs, lists, tables), built from text nodes only. */
   function renderText(className, text, marks, found) {
+    marks = toUnits(text, marks);
+    if (found) found = toUnits(text, [found])[0];
     const box = document.createElement("div");
     box.className = className;
     const firstFound = { node: null };
