@@ -105,7 +105,9 @@ class _Handoff(Response):
         await self.manager.handle_request(scope, receive, send)
 
 
-@router.api_route(PATH, methods=["GET", "POST", "DELETE"], include_in_schema=False)
+# POST only: stateless, the service never streams to the client nor keeps a session to end,
+# so GET and DELETE are the 405 the spec allows (an open GET stream would only hold a task).
+@router.post(PATH, include_in_schema=False)
 async def mcp_endpoint(request: Request, caller: ReadCaller) -> Response:
     """The MCP endpoint (streamable HTTP); every request needs the key a REST call would."""
     _check_keyless(request, caller)

@@ -24,7 +24,9 @@ from mcp.shared.exceptions import MCPError
 from prometheus_client.parser import text_string_to_metric_families
 from sounding.indexer.embedding import HashingEmbedder
 from sounding.service.app import create_app
-from sounding.service.mcp import document_text
+from sounding.service.auth import ANONYMOUS
+from sounding.service.engine import Engine
+from sounding.service.mcp import Asker, call_tool, document_text
 from sounding.service.mcp_http import loopback_name
 from sounding.service.schemas import DocumentResponse, SectionOut
 
@@ -234,6 +236,8 @@ def test_keys_are_required(served: Served) -> None:
     assert bare.status_code == 401 and bare.headers["www-authenticate"].startswith("Bearer")
     wrong = httpx.post(f"{served.url}/mcp", json=ping, headers={"Authorization": "Bearer x"})
     assert wrong.status_code == 401
+    # Stateless: no stream to open and no session to end (the 405 the spec allows).
+    assert httpx.get(f"{served.url}/mcp", headers=served.auth("reader")).status_code == 405
     # The SDK's client, refused at the HTTP layer, fails without a session.
     with pytest.raises(Exception) as caught:  # noqa: B017 - an exception group, checked below
         run(served, None, lambda c: c.list_tools())
@@ -327,3 +331,24 @@ def test_sounding_mcp_without_a_key_refuses_to_start(
     key.write_text("snd_x_y\n")
     assert main(["mcp", "--index", str(tmp_path), "--key-file", str(key), "--anonymous"]) == 2
     assert "exclude each other" in capsys.readouterr().err
+
+
+def test_each_tool_call_lets_go_of_its_generation(served: Served) -> None:
+    """Held for the call, released after it, errors included: none outlives the engine."""
+    embedder = HashingEmbedder(32, seed=3)
+    settings = served.settings
+    engine = Engine(settings.index_dir, embedder, settings.searcher_factory(embedder), 0)
+    generation = engine.hold()
+    assert generation is not None
+    generation.release()
+    asker = Asker(caller=ANONYMOUS, engine=engine, settings=settings)
+    for name, arguments in [
+        ("search", {"query": "pump"}),
+        ("search", {"query": "pump", "k": 0}),
+        ("context", {"query": "pump", "budget": 10**6}),
+        ("get_document", {"id": SECRET_ID}),
+        ("get_document", {"id": "ops/pump.md"}),
+    ]:
+        call_tool(asker, name, arguments)
+    engine.close()
+    assert generation.closed
