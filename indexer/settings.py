@@ -103,6 +103,43 @@ class IndexSettings(BaseSettings):
         description="Most bytes of metadata (front matter, corpus fields) one document may "
         "store, as JSON; every search that returns the document loads it.",
     )
+    # Office files, mail and scans (indexer/loaders/_zipcheck.py, _xlsx.py, _scan.py).
+    max_unpacked_bytes: int = Field(
+        128 * 2**20,
+        ge=1,
+        description="Most bytes an office file (.docx, .pptx, .xlsx, .odt, .odp, .ods) may "
+        "unpack to, summed over its zip parts, checked before it is parsed; zip bombs unpack "
+        "a few KB to GB. Over it the file is skipped (a push answers 422).",
+    )
+    max_sheet_rows: int = Field(
+        50_000,
+        ge=1,
+        description="Most rows with content one spreadsheet sheet may have; a sheet over it "
+        "is left out with a warning (the file is skipped when every sheet is).",
+    )
+    max_sheet_cells: int = Field(
+        500_000,
+        ge=1,
+        description="Most cells one spreadsheet sheet may have read; as max_sheet_rows.",
+    )
+    ocr: bool = Field(
+        True,
+        description="Read scanned PDF pages (no text layer) with Tesseract when the "
+        "tesseract command and its language data are installed; off, or without Tesseract, "
+        "such pages are skipped with the reason 'no text layer'.",
+    )
+    ocr_seconds: float = Field(
+        300.0,
+        gt=0,
+        description="Most seconds of OCR one document may take; scanned pages past it are "
+        "skipped with a warning.",
+    )
+    ocr_language: str = Field(
+        "eng",
+        min_length=1,
+        description="Tesseract language data to read scans with (e.g. eng, deu, eng+fra); "
+        "Debian packages them as tesseract-ocr-<lang>.",
+    )
     vector_index: Literal["auto", "exact", "ivf"] = Field(
         "auto",
         description="FAISS index of the chunk vectors: exact (brute force), ivf (IVF cells "
@@ -137,7 +174,14 @@ class IndexSettings(BaseSettings):
         from .loaders import LoadLimits
 
         return LoadLimits(
-            max_chars=self.max_document_chars, max_metadata_bytes=self.max_metadata_bytes
+            max_chars=self.max_document_chars,
+            max_metadata_bytes=self.max_metadata_bytes,
+            max_unpacked_bytes=self.max_unpacked_bytes,
+            max_sheet_rows=self.max_sheet_rows,
+            max_sheet_cells=self.max_sheet_cells,
+            ocr=self.ocr,
+            ocr_seconds=self.ocr_seconds,
+            ocr_language=self.ocr_language,
         )
 
     @property

@@ -11,6 +11,15 @@ if [ ! -x /usr/bin/chromium ] || [ ! -x /usr/bin/chromedriver ]; then
     $sudo env DEBIAN_FRONTEND=noninteractive apt-get install -y -qq \
         chromium chromium-driver >/dev/null
 fi
+# Scanned PDF pages are read by Debian's Tesseract with its English data (test_loaders_ocr.py).
+if ! tesseract --list-langs 2>/dev/null | grep -qx eng; then
+    echo "test: installing tesseract-ocr and tesseract-ocr-eng with apt-get"
+    sudo=""
+    [ "$(id -u)" -eq 0 ] || sudo="sudo"
+    $sudo env DEBIAN_FRONTEND=noninteractive apt-get update -qq
+    $sudo env DEBIAN_FRONTEND=noninteractive apt-get install -y -qq \
+        tesseract-ocr tesseract-ocr-eng >/dev/null
+fi
 bash scripts/setup.sh --test
 .venv/bin/ruff check indexer service sounding tests
 .venv/bin/ruff format --check indexer service sounding tests

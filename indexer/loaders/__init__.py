@@ -1,6 +1,8 @@
 """Document loaders: turn the files under a root into :class:`~indexer.documents.Document` values.
 
-Markdown, HTML, PDF and plain text give one document per file; a BEIR-style
+Markdown, HTML, PDF, plain text and office files (Word, OpenDocument,
+PowerPoint, Excel) give one document per file; a saved mail (``.eml``) gives
+one, and one per attachment of a supported type; a BEIR-style
 ``corpus.jsonl`` (or ``.jsonl.gz``) gives one per line. :func:`iter_root`
 never raises for a bad file: it yields a :class:`~indexer.documents.Skipped`
 with a reason a person can act on, and carries on.
@@ -28,9 +30,11 @@ from ._common import (
     short_error,
 )
 from ._corpus import iter_corpus
+from ._formats import OFFICE_KINDS, parse_office, read_mail
 from ._html import declared_charset, parse_html
 from ._markdown import parse_markdown
 from ._pdf import parse_pdf
+from ._scanned import ocr_options
 from ._text import parse_text
 
 __all__ = [
@@ -40,6 +44,7 @@ __all__ = [
     "iter_root",
     "load_file",
     "parse_document",
+    "upload_kind",
 ]
 
 KINDS: dict[str, str] = {
@@ -51,8 +56,11 @@ KINDS: dict[str, str] = {
     ".txt": "text",
     ".jsonl": "corpus",
     ".jsonl.gz": "corpus",
+    **OFFICE_KINDS,
 }
 SUPPORTED_SUFFIXES: frozenset[str] = frozenset(KINDS)
+# What parse_document reads: every kind but corpus files (streamed from disk only).
+DOCUMENT_KINDS: frozenset[str] = frozenset(KINDS.values()) - {"corpus"}
 DEFAULT_MAX_FILE_BYTES = 50 * 2**20
 
 BINARY = "binary content in a text file"
@@ -69,6 +77,12 @@ def file_suffix(name: str) -> str:
     return PurePath(lower).suffix
 
 
+def upload_kind(name: str) -> str | None:
+    """The kind an uploaded file named ``name`` is read as, or None (corpus files too)."""
+    kind = KINDS.get(file_suffix(name))
+    return kind if kind in DOCUMENT_KINDS else None
+
+
 def load_file(path: Path, doc_id: str, limits: LoadLimits = DEFAULT_LIMITS) -> list[Document]:
     """Load one file as documents (one, or one per record of a corpus file).
 
@@ -82,7 +96,8 @@ def load_file(path: Path, doc_id: str, limits: LoadLimits = DEFAULT_LIMITS) -> l
     try:
         if kind == "corpus":
             return _corpus_documents(path, doc_id, st, limits)
-        return [_document(path, doc_id, kind, _read_bytes(path), st.st_mtime, limits)]
+        found = _documents(path, doc_id, kind, _read_bytes(path), st.st_mtime, limits)
+        return [d for d in found if isinstance(d, Document)]
     except (LoadError, MemoryError):
         raise
     except PermissionError as exc:
@@ -230,7 +245,7 @@ def _load_entry(
         if kind == "corpus":
             yield from iter_corpus(path, rel, os.path.abspath(path), st.st_mtime, limits)
         else:
-            yield _document(path, rel, kind, _read_bytes(path), st.st_mtime, limits)
+            yield from _documents(path, rel, kind, _read_bytes(path), st.st_mtime, limits)
     except LoadError as exc:
         yield Skipped(rel, str(exc))
     except MemoryError:
@@ -290,11 +305,13 @@ def _corpus_documents(
     return docs
 
 
-def _document(
+def _documents(
     path: Path, doc_id: str, kind: str, data: bytes, modified: float, limits: LoadLimits
-) -> Document:
-    """Parse the bytes of a non-corpus file into a Document; LoadError if unusable."""
-    return parse_document(
+) -> list[Document | Skipped]:
+    """Parse the bytes of a non-corpus file into documents (a mail's attachments are
+    documents of their own, or Skipped); LoadError if the file is unusable."""
+    found: list[Document | Skipped] = []
+    parse_document(
         data,
         kind,
         doc_id=doc_id,
@@ -302,7 +319,9 @@ def _document(
         source=os.path.abspath(path),
         modified=modified,
         limits=limits,
+        into=found,
     )
+    return found
 
 
 def parse_document(
@@ -314,22 +333,34 @@ def parse_document(
     source: str,
     modified: float,
     limits: LoadLimits = DEFAULT_LIMITS,
+    into: list[Document | Skipped] | None = None,
 ) -> Document:
-    """Parse one document's bytes (``kind``: markdown, html, pdf or text).
+    """Parse one document's bytes (``kind``: one of DOCUMENT_KINDS, e.g. markdown or pdf).
 
     What a file on disk goes through, for documents that arrive otherwise
     (pushed over HTTP). ``name`` gives the fallback title; LoadError with the
     reason when the bytes are unusable, when the document's access metadata
-    cannot be read with certainty, or when it is over ``limits``.
+    cannot be read with certainty, or when it is over ``limits``. A mail's
+    readable attachments become sections of it (one id for a push); with
+    ``into``, they are documents of their own (ids under ``doc_id``), appended
+    there after the message, with a Skipped for each one not read.
     """
-    if kind not in ("markdown", "html", "pdf", "text"):
-        raise LoadError(f"unsupported kind {kind!r}; use markdown, html, pdf or text")
+    if kind not in DOCUMENT_KINDS:
+        raise LoadError(
+            f"unsupported kind {kind!r}; use one of {', '.join(sorted(DOCUMENT_KINDS))}"
+        )
     if not data.strip():
         raise LoadError(NO_TEXT)
     stem = PurePath(name).stem
     warnings: list[str] = []
+    attachments: list[Document | Skipped] = []
     if kind == "pdf":
-        parsed: Parsed = parse_pdf(data, stem, max_chars=limits.max_chars)
+        parsed: Parsed = parse_pdf(data, stem, max_chars=limits.max_chars, **ocr_options(limits))
+    elif kind == "mail":
+        common = {"source": source, "modified": modified, "limits": limits}
+        parsed, attachments = read_mail(data, stem, doc_id, KINDS, parse_document, into, common)
+    elif kind in OFFICE_KINDS.values():
+        parsed = parse_office(data, kind, stem, limits)
     else:
         if is_binary(data):
             raise LoadError(BINARY)
@@ -349,7 +380,7 @@ def parse_document(
     if warnings:
         metadata["warnings"] = capped_warnings(warnings)
     check_metadata_size(metadata, limits.max_metadata_bytes)
-    return Document(
+    document = Document(
         id=doc_id,
         title=parsed.title,
         source=source,
@@ -359,3 +390,6 @@ def parse_document(
         sections=tuple(parsed.sections),
         metadata=metadata,
     )
+    if into is not None:
+        into += [document, *attachments]
+    return document

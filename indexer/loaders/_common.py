@@ -27,6 +27,11 @@ DEFAULT_MAX_DOCUMENT_CHARS = 2_000_000
 DEFAULT_MAX_METADATA_BYTES = 64 * 1024
 # A PDF with thousands of broken pages would otherwise carry thousands of warnings.
 MAX_WARNINGS = 20
+# Office files and scans (see IndexSettings for why these defaults).
+DEFAULT_MAX_UNPACKED_BYTES = 128 * 2**20
+DEFAULT_MAX_SHEET_ROWS = 50_000
+DEFAULT_MAX_SHEET_CELLS = 500_000
+DEFAULT_OCR_SECONDS = 300.0
 
 _BLANK_RUNS = re.compile(r"\n[ \t]*\n(?:[ \t]*\n)+")
 _SEPARATORS = re.compile(r"[-_\s]+")
@@ -48,6 +53,14 @@ class LoadLimits:
 
     max_chars: int = DEFAULT_MAX_DOCUMENT_CHARS
     max_metadata_bytes: int = DEFAULT_MAX_METADATA_BYTES
+    # Office formats (zip containers, spreadsheets) and OCR of scanned PDF pages;
+    # defaults as in IndexSettings (the settings say why).
+    max_unpacked_bytes: int = DEFAULT_MAX_UNPACKED_BYTES
+    max_sheet_rows: int = DEFAULT_MAX_SHEET_ROWS
+    max_sheet_cells: int = DEFAULT_MAX_SHEET_CELLS
+    ocr: bool = True
+    ocr_seconds: float = DEFAULT_OCR_SECONDS
+    ocr_language: str = "eng"
 
 
 DEFAULT_LIMITS = LoadLimits()

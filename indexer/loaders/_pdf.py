@@ -14,12 +14,14 @@ from ..documents import Section
 from ..errors import LoadError
 from ._common import (
     DEFAULT_MAX_DOCUMENT_CHARS,
+    DEFAULT_OCR_SECONDS,
     Parsed,
     first_line_title,
     short_error,
     tidy_text,
     title_from_stem,
 )
+from ._scanned import ScanReader
 
 ENCRYPTED = "encrypted PDF (no password available)"
 NO_TEXT_LAYER = "no text (scanned PDF without a text layer?)"
@@ -36,16 +38,26 @@ class _OverBudget(Exception):
     """Raised from inside pypdf's extraction once a page shows more text than is left."""
 
 
-def parse_pdf(data: bytes, stem: str, *, max_chars: int = DEFAULT_MAX_DOCUMENT_CHARS) -> Parsed:
+def parse_pdf(
+    data: bytes,
+    stem: str,
+    *,
+    max_chars: int = DEFAULT_MAX_DOCUMENT_CHARS,
+    ocr: bool = True,
+    ocr_seconds: float = DEFAULT_OCR_SECONDS,
+    ocr_language: str = "eng",
+) -> Parsed:
     """Extract page texts (1-based page numbers), title and page count from PDF bytes.
 
     Extraction stops as soon as the text passes ``max_chars`` (a few KB of
-    compressed PDF can hold millions of characters): LoadError then.
+    compressed PDF can hold millions of characters): LoadError then. A scanned
+    page (no text layer, an image) is read by OCR when ``ocr`` and tesseract is
+    installed, within ``ocr_seconds`` for the document; else skipped with a warning.
     """
     with py_warnings.catch_warnings():
         py_warnings.simplefilter("ignore")
         try:
-            return _parse(data, stem, max_chars)
+            return _parse(data, stem, max_chars, ScanReader(ocr, ocr_seconds, ocr_language))
         except (LoadError, MemoryError):
             raise
         except Exception as exc:  # noqa: BLE001 - pypdf raises many types on broken files
@@ -72,7 +84,7 @@ def _page_text(page: PageObject, left: int) -> str:
     return page.extract_text(visitor_operand_before=count) or ""
 
 
-def _parse(data: bytes, stem: str, max_chars: int) -> Parsed:
+def _parse(data: bytes, stem: str, max_chars: int, scans: ScanReader) -> Parsed:
     reader = PdfReader(io.BytesIO(data))
     if reader.is_encrypted:
         try:
@@ -92,6 +104,8 @@ def _parse(data: bytes, stem: str, max_chars: int) -> Parsed:
         except Exception as exc:  # noqa: BLE001 - one bad page should not lose the others
             parsed.warnings.append(f"page {number}: text not extracted ({short_error(exc, 120)})")
             continue
+        if not text.strip():
+            text = scans.read(page, number, parsed.warnings)
         if number == 1:
             first_page_text = text
         total += len(text)
@@ -100,7 +114,8 @@ def _parse(data: bytes, stem: str, max_chars: int) -> Parsed:
         if text.strip():
             parsed.sections.append(Section(trail=(), text=text, page=number))
     if not parsed.sections:
-        raise LoadError(NO_TEXT_LAYER)
+        raise LoadError(scans.no_text_reason() or NO_TEXT_LAYER)
+    parsed.metadata.update(scans.metadata())
     info = _info(reader)
     parsed.metadata["pages"] = len(reader.pages)
     if info.get("author"):

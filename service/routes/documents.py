@@ -17,7 +17,7 @@ from pydantic import ValidationError
 from sounding.indexer.access import parse_groups, parse_tags
 from sounding.indexer.build import PushReport, delete_document, push_document
 from sounding.indexer.errors import IndexLockedError, LoadError, SettingsError
-from sounding.indexer.loaders import parse_document
+from sounding.indexer.loaders import SUPPORTED_SUFFIXES, parse_document, upload_kind
 from sounding.indexer.reports import warnings_of
 
 from ..auth import ReadCaller, WriteCaller
@@ -32,14 +32,6 @@ MAX_ID_CHARS = 512
 # Path-like ids: segments of letters, digits and a few marks, joined by single slashes.
 _SEGMENT = r"[\w.~@:+=,()' -]+"
 _ID = re.compile(rf"^{_SEGMENT}(/{_SEGMENT})*$")
-_KINDS_BY_SUFFIX = {
-    ".md": "markdown",
-    ".markdown": "markdown",
-    ".html": "html",
-    ".htm": "html",
-    ".pdf": "pdf",
-    ".txt": "text",
-}
 _FORM_FIELDS = frozenset({"file", "title", "collection", "source", "modified", "groups", "tags"})
 _BLANK_GROUPS = (
     "the form field 'groups' is empty; leave it out to use the document's own groups or "
@@ -118,10 +110,10 @@ async def _push_body(request: Request) -> tuple[PushRequest, bytes, str]:
             raise HTTPException(422, "a multipart push needs the document in a field 'file'")
         data = await upload.read()
         name = upload.filename or "upload"
-        suffix = name[name.rfind(".") :].lower() if "." in name else ""
-        kind = _KINDS_BY_SUFFIX.get(suffix)
+        kind = upload_kind(name)  # the loaders' registry: every format a folder run reads
         if kind is None:
-            raise HTTPException(422, f"uploaded file {name!r} is not .md, .html, .pdf or .txt")
+            accepted = ", ".join(sorted(s for s in SUPPORTED_SUFFIXES if upload_kind(f"file{s}")))
+            raise HTTPException(422, f"uploaded file {name!r} is not one of {accepted}")
         unknown = sorted(set(form) - _FORM_FIELDS)
         if unknown:  # a misspelt "group" would otherwise publish the page to everyone
             raise HTTPException(422, f"unknown form fields {unknown}; use {sorted(_FORM_FIELDS)}")

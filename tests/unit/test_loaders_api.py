@@ -19,6 +19,7 @@ from tests.unit.loading import load_one, make_pdf, write
 def test_supported_suffixes_are_exactly_the_documented_ones() -> None:
     assert (
         frozenset({".md", ".markdown", ".html", ".htm", ".pdf", ".txt", ".jsonl", ".jsonl.gz"})
+        | {".docx", ".odt", ".pptx", ".odp", ".xlsx", ".ods", ".eml"}
         == SUPPORTED_SUFFIXES
     )
 
