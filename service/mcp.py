@@ -131,10 +131,6 @@ def call_tool(asker: Asker, name: str, arguments: dict[str, Any]) -> types.CallT
         generation.release()
 
 
-def _citation(document_id: str, title: str, source: str, trail: Any, page: int | None) -> str:
-    return Citation(document_id, title, source, tuple(trail), page).line()
-
-
 def _search(asker: Asker, generation: Generation, args: SearchArgs) -> types.CallToolResult:
     if asker.on_mode is not None:
         asker.on_mode(args.mode)
@@ -149,19 +145,11 @@ def _search(asker: Asker, generation: Generation, args: SearchArgs) -> types.Cal
         max_query_chars=settings.max_query_chars,
     )
     hits = searcher.run(query)
-    # The rows of POST /search (links, highlights), each with its citation line.
-    results = [
-        CitedPassage(
-            **p.model_dump(), citation=_citation(p.document_id, p.title, p.source, p.trail, p.page)
-        )
-        for p in passages(hits, args.query, settings.collection_urls)
-    ]
-    text = SEPARATOR.join(
-        render_passage(
-            p.rank, p.text, Citation(p.document_id, p.title, p.source, tuple(p.trail), p.page)
-        )
-        for p in results
-    )
+    # The rows of POST /search (links, highlights), each with the citation /context writes.
+    rows = passages(hits, args.query, settings.collection_urls)
+    cited = [(p, Citation(p.document_id, p.title, p.source, tuple(p.trail), p.page)) for p in rows]
+    results = [CitedPassage(**p.model_dump(), citation=c.line()) for p, c in cited]
+    text = SEPARATOR.join(render_passage(p.rank, p.text, c) for p, c in cited)
     structured = SearchResult(
         query=args.query, mode=query.mode, generation=generation.number, results=results
     )
@@ -195,7 +183,7 @@ def _context(asker: Asker, generation: Generation, args: ContextArgs) -> types.C
         token_counter(searcher.embedder.tokenizer),
         max_per_document=args.max_per_document,
     )
-    passages = [
+    chosen_passages = [
         ContextPassageOut(
             number=p.number,
             document_id=p.citation.document_id,
@@ -217,7 +205,7 @@ def _context(asker: Asker, generation: Generation, args: ContextArgs) -> types.C
         used=chosen.used,
         mode=query.mode,
         generation=generation.number,
-        passages=passages,
+        passages=chosen_passages,
         text=chosen.text,
     )
     return _result(chosen.text or "no passages matched", structured)
@@ -251,7 +239,7 @@ def _document(asker: Asker, generation: Generation, args: DocumentArgs) -> types
         kind=view.kind,
         modified=view.modified,
         tags=view.tags,
-        citation=_citation(view.id, view.title, view.source, (), None),
+        citation=Citation(view.id, view.title, view.source).line(),
         text=text,
         truncated=truncated,
     )
