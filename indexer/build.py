@@ -9,7 +9,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .access import AccessRules, parse_tags
+from .access import AccessRules, may_read, parse_tags
 from .chunking import Chunk, chunk_document
 from .documents import Document, Skipped
 from .embedding import Embedder, describe
@@ -17,11 +17,12 @@ from .errors import IndexLockedError, LoadError, SettingsError, SoundingError
 from .loaders import iter_root
 from .lock import IndexLock
 from .reports import PushReport, RefreshReport
+
+__all__ = ["PushReport", "RefreshReport", "delete_document", "push_document", "refresh_index"]
 from .settings import IndexSettings
 from .store import SCHEMA_VERSION, IndexWriter, Manifest, write_last_run
 from .vectors import plan_is_current
-
-__all__ = ["PushReport", "RefreshReport", "delete_document", "push_document", "refresh_index"]
+from .write_access import check_visible, check_writable
 
 # Documents are embedded and stored in groups of about this many chunks: big
 # enough for full encoder batches, small enough to bound memory; a group's end
@@ -285,6 +286,7 @@ def push_document(
     groups: tuple[str, ...] | None = None,
     tags: tuple[str, ...] | None = None,
     wait_seconds: float = 10.0,
+    caller_groups: frozenset[str] | None = None,
 ) -> PushReport:
     """Index one document that arrived outside a folder run, and publish at once.
 
@@ -294,6 +296,9 @@ def push_document(
     for a file. Waits up to ``wait_seconds`` for a running re-index, then
     raises IndexLockedError. Raises LoadError when the document has no text
     or invalid groups.
+
+    ``caller_groups``: the pusher's groups (None: unrestricted, the CLI); see
+    :mod:`.write_access` for the AccessError and HiddenDocumentError it raises.
     """
     chunking = settings.chunking
     chunking.check(embedder.max_tokens)
@@ -301,6 +306,7 @@ def push_document(
     own_groups, own_tags = labels_of(doc, collection, rules)
     groups = own_groups if groups is None else groups
     tags = own_tags if tags is None else tags
+    check_writable(groups, caller_groups)
     chunks = chunk_document(doc, embedder.tokenizer, chunking)
     if not chunks:
         raise LoadError("no text")
@@ -310,6 +316,9 @@ def push_document(
         _locked(settings.index_dir, wait_seconds),
         IndexWriter(settings.index_dir, describe(embedder), chunking) as writer,
     ):
+        stored = writer.labels().get(doc.id)
+        # Before any other answer about the id (its collection, say): a hidden one stays hidden.
+        check_visible(doc.id, None if stored is None else stored[0], caller_groups)
         known = writer.known().get(doc.id)
         if known is not None and known[0] != collection:
             raise SettingsError(
@@ -317,7 +326,7 @@ def push_document(
                 "push it to its own collection or delete it first"
             )
         if known == (collection, doc.content_hash):
-            if writer.labels().get(doc.id) == (groups, tags):
+            if stored == (groups, tags):
                 manifest = writer.previous
                 return PushReport(
                     doc.id, "unchanged", len(chunks), 0, manifest.generation if manifest else 0
@@ -340,13 +349,22 @@ def push_document(
 
 
 def delete_document(
-    settings: IndexSettings, embedder: Embedder, document_id: str, *, wait_seconds: float = 10.0
+    settings: IndexSettings,
+    embedder: Embedder,
+    document_id: str,
+    *,
+    wait_seconds: float = 10.0,
+    caller_groups: frozenset[str] | None = None,
 ) -> PushReport | None:
-    """Remove one document and publish at once; None when it is not in the index."""
+    """Remove one document and publish at once; None when it is not in the index, or
+    is hidden from ``caller_groups`` (decided under the index lock; None: unrestricted)."""
     with (
         _locked(settings.index_dir, wait_seconds),
         IndexWriter(settings.index_dir, describe(embedder), settings.chunking) as writer,
     ):
+        stored = writer.labels().get(document_id)
+        if stored is None or not may_read(stored[0], caller_groups):
+            return None
         if not writer.remove([document_id]):
             return None
         manifest = writer.publish()

@@ -10,17 +10,26 @@ Scopes are ordered, ``read`` < ``write`` < ``admin``, each including the ones
 before it. A caller's ``groups`` decide which restricted documents it may
 read. A key with the act-for right may send ``X-Sounding-On-Behalf-Of: g1,g2``
 (empty: a user in no group), and its groups are then exactly those: a chat
-bot searches with the rights of the person asking, never with its own.
+bot searches with the rights of the person asking, never with its own. It may
+claim only the groups it was created to act for (``--act-for-groups``); any
+other is a 403 naming it.
+
+With ``require_keys`` off, a request without a key is served as anonymous
+only when it arrived on a loopback socket (the connection's address, not the
+``host`` setting, which ``uvicorn --factory --host ...`` does not change).
 
 Statuses follow RFC 6750 section 3.1: 401 with ``WWW-Authenticate: Bearer``
 when the key is missing or refused, 403 with ``error="insufficient_scope"``
-when the key's scope is too low; a malformed header is a 400.
+when the key's scope is too low; a malformed header is a 400; 429 with
+Retry-After while a key id that kept failing is backed off.
 """
 
 from __future__ import annotations
 
 import functools
+import ipaddress
 import logging
+import math
 from collections.abc import Callable
 from dataclasses import dataclass, replace
 from typing import Annotated
@@ -29,6 +38,7 @@ from fastapi import Depends, Header, HTTPException, Request
 from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 from sounding.indexer.errors import AccessError
 
+from .backoff import TooManyAttempts
 from .keys import SCOPES, KeyStore, check_groups, scope_rank
 from .settings import ServiceSettings
 
@@ -53,6 +63,7 @@ class Caller:
     act_for: bool = False
     on_behalf: bool = False
     key_id: str | None = None
+    act_for_groups: frozenset[str] = frozenset()  # the groups an act-for key may claim
 
     def may(self, scope: str) -> bool:
         """Whether this caller's scope includes ``scope``."""
@@ -63,7 +74,7 @@ class Caller:
         return self.key_id is None
 
 
-# With require_keys off (loopback only): every scope, but no group and no act-for, so an
+# With require_keys off (loopback sockets only): every scope, but no group and no act-for, so an
 # anonymous caller sees only unrestricted documents.
 ANONYMOUS = Caller(name="anonymous", scope=SCOPES[-1], groups=frozenset())
 
@@ -108,6 +119,24 @@ def _one_header(request: Request, name: str) -> str | None:
     return values[0] if values else None
 
 
+def from_loopback(request: Request) -> bool:
+    """Whether the request arrived on a loopback socket (127.0.0.0/8, ::1, or ::ffff:127.x).
+
+    ASGI's ``client`` is the peer address of the connection; with no address (a UNIX
+    socket, some servers) the answer is no, so keys-off fails closed.
+    """
+    client = request.client
+    if client is None:
+        return False
+    try:
+        address = ipaddress.ip_address(client.host)
+    except ValueError:  # not an address at all
+        return False
+    if isinstance(address, ipaddress.IPv6Address) and address.ipv4_mapped is not None:
+        address = address.ipv4_mapped
+    return address.is_loopback
+
+
 def authenticate(
     request: Request,
     _credentials: Annotated[HTTPAuthorizationCredentials | None, Depends(_bearer)],
@@ -116,8 +145,8 @@ def authenticate(
         Header(
             alias=ON_BEHALF_HEADER,
             description="Only for keys with the act-for right: the end user's groups, "
-            "comma-separated (empty for a user in no group). The request then sees exactly "
-            "what that user may read.",
+            "comma-separated (empty for a user in no group), each among the key's act-for "
+            "groups (else 403). The request then sees exactly what that user may read.",
         ),
     ] = None,
 ) -> Caller:
@@ -135,6 +164,14 @@ def authenticate(
                 "keys with `sounding keys create`",
                 error=None,
             )
+        if not from_loopback(request):
+            host = request.client.host if request.client else "an unknown address"
+            raise _refuse(
+                f"no API key: keys are off here (require_keys=false), but only for requests "
+                f"from this machine's loopback, and this one came from {host}; send "
+                "'Authorization: Bearer <key>'",
+                error=None,
+            )
         caller = ANONYMOUS
     else:
         scheme, _, secret = header.strip().partition(" ")
@@ -145,10 +182,21 @@ def authenticate(
             raise HTTPException(status_code=503, detail="the keys store is not open")
         try:
             key = store.authenticate(secret.strip())
+        except TooManyAttempts as exc:
+            raise HTTPException(
+                status_code=429,
+                detail=str(exc),
+                headers={"Retry-After": str(max(1, math.ceil(exc.retry_after)))},
+            ) from None
         except AccessError as exc:
             raise _refuse(str(exc)) from None
         caller = Caller(
-            name=key.name, scope=key.scope, groups=key.groups, act_for=key.act_for, key_id=key.id
+            name=key.name,
+            scope=key.scope,
+            groups=key.groups,
+            act_for=key.act_for,
+            key_id=key.id,
+            act_for_groups=key.act_for_groups,
         )
 
     on_behalf = _one_header(request, ON_BEHALF_HEADER)
@@ -170,6 +218,15 @@ def authenticate(
             groups = check_groups(on_behalf, ON_BEHALF_HEADER)
         except AccessError as exc:
             raise HTTPException(status_code=400, detail=str(exc)) from None
+        outside = groups - caller.act_for_groups
+        if outside:
+            allowed = ", ".join(sorted(caller.act_for_groups)) or "none"
+            raise HTTPException(
+                status_code=403,
+                detail=f"key {caller.name!r} may not act for group(s) "
+                f"{', '.join(sorted(outside))}: it may act for {allowed}; an administrator "
+                "re-creates it with `sounding keys create --act-for --act-for-groups G1,G2`",
+            )
         caller = replace(caller, groups=groups, on_behalf=True)
     request.state.caller = caller  # for request logs and metrics
     return caller
@@ -212,7 +269,8 @@ def open_keys(settings: ServiceSettings) -> KeyStore:
         log.warning(
             "API keys are OFF (require_keys=false): any program or user on this machine that "
             "can connect to %s:%d is served as 'anonymous' with every scope, seeing the "
-            "unrestricted documents; set SOUNDING_REQUIRE_KEYS=true to require keys",
+            "unrestricted documents (requests from other addresses still need a key); set "
+            "SOUNDING_REQUIRE_KEYS=true to require keys",
             settings.host,
             settings.port,
         )

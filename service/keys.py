@@ -11,12 +11,19 @@ an index never loses them.
 A successful check is remembered in memory under the SHA-256 of the secret,
 so a key pays scrypt once per process; but the key's row is read on every
 request (one primary-key lookup), so ``sounding keys revoke`` takes effect at
-once in a running service.
+once in a running service. An unknown id costs one scrypt too (against a dummy
+hash), so timing does not tell which ids exist; repeated failures of one id
+are held back cheaply (:mod:`.backoff`).
+
+An act-for key may claim only its ``act_for_groups``. Keys files made before
+that column existed are migrated in place; their act-for keys get no list,
+which means no group (fail-closed) until they are re-created.
 """
 
 from __future__ import annotations
 
 import builtins
+import dataclasses
 import hashlib
 import hmac
 import json
@@ -27,12 +34,13 @@ import threading
 import time
 from collections import OrderedDict
 from collections.abc import Iterable
-from dataclasses import dataclass
 from pathlib import Path
 
 from sounding.indexer.access import parse_groups
 from sounding.indexer.errors import AccessError, IndexStoreError
 from sounding.indexer.store import open_side_database
+
+from .backoff import FailureGate, TooManyAttempts
 
 FILENAME = "keys.db"
 SCOPES = ("read", "write", "admin")  # each includes the ones before it
@@ -54,6 +62,8 @@ SALT_BYTES = 16
 # Checks of unknown secrets are never cached, so each costs a full scrypt: at most this many
 # run at once, so a flood of bad keys costs bounded memory (16 MiB each) and CPU.
 _CONCURRENT_CHECKS = threading.BoundedSemaphore(2)
+# A check that cannot start within this long is refused (429) rather than holding a worker.
+_CHECK_WAIT_SECONDS = 1.0
 _CACHE_SIZE = 1024
 
 _SCHEMA = """
@@ -63,6 +73,7 @@ CREATE TABLE IF NOT EXISTS keys (
     scope TEXT NOT NULL CHECK (scope IN ('read', 'write', 'admin')),
     groups TEXT NOT NULL,
     act_for INTEGER NOT NULL CHECK (act_for IN (0, 1)),
+    act_for_groups TEXT,
     salt BLOB NOT NULL,
     hash BLOB NOT NULL,
     scrypt_n INTEGER NOT NULL,
@@ -74,7 +85,7 @@ CREATE TABLE IF NOT EXISTS keys (
 -- A name belongs to one live key at a time; a revoked key's name may be reused.
 CREATE UNIQUE INDEX IF NOT EXISTS keys_live_name ON keys(name) WHERE revoked_at IS NULL;
 """
-_COLUMNS = "id, name, scope, groups, act_for, created_at, revoked_at"
+_COLUMNS = "id, name, scope, groups, act_for, created_at, revoked_at, act_for_groups"
 
 
 def scope_rank(scope: str) -> int:
@@ -122,7 +133,7 @@ def key_id_of(secret: str) -> str | None:
     return match.group(1) if match else None
 
 
-@dataclass(frozen=True)
+@dataclasses.dataclass(frozen=True)
 class KeyRecord:
     """What is known about a key. Never holds its secret or hash."""
 
@@ -133,6 +144,7 @@ class KeyRecord:
     act_for: bool
     created_at: float
     revoked_at: float | None = None
+    act_for_groups: frozenset[str] = frozenset()  # what an act-for key may claim
 
     @property
     def revoked(self) -> bool:
@@ -145,6 +157,7 @@ class KeyRecord:
             "scope": self.scope,
             "groups": sorted(self.groups),
             "act_for": self.act_for,
+            "act_for_groups": sorted(self.act_for_groups),
             "created_at": _iso(self.created_at),
             "revoked_at": _iso(self.revoked_at) if self.revoked_at is not None else None,
         }
@@ -155,10 +168,30 @@ def _iso(t: float) -> str:
 
 
 def _record(row: tuple) -> KeyRecord:
-    id_, name, scope, groups, act_for, created_at, revoked_at = row
+    id_, name, scope, groups, act_for, created_at, revoked_at, act_for_groups = row
     return KeyRecord(
-        id_, name, scope, frozenset(json.loads(groups)), bool(act_for), created_at, revoked_at
+        id_,
+        name,
+        scope,
+        frozenset(json.loads(groups)),
+        bool(act_for),
+        created_at,
+        revoked_at,
+        # NULL: an act-for key from before the column; it may claim no group (fail-closed).
+        frozenset(json.loads(act_for_groups)) if act_for_groups else frozenset(),
     )
+
+
+def _migrate(conn: sqlite3.Connection) -> None:
+    """Add the act_for_groups column to a keys file made before it existed."""
+    columns = {row[1] for row in conn.execute("PRAGMA table_info(keys)")}
+    if "act_for_groups" in columns:
+        return
+    try:
+        conn.execute("ALTER TABLE keys ADD COLUMN act_for_groups TEXT")
+    except sqlite3.OperationalError as exc:  # another process added it first
+        if "duplicate column" not in str(exc):
+            raise
 
 
 class KeyStore:
@@ -168,7 +201,15 @@ class KeyStore:
         self.path = Path(path)
         self._lock = threading.Lock()
         self._verified: OrderedDict[bytes, str] = OrderedDict()  # sha256(secret) -> key id
+        self.failures = FailureGate()
         self.conn = open_side_database(self.path, _SCHEMA, "keys file", owner_only=True)
+        try:
+            _migrate(self.conn)
+        except sqlite3.Error as exc:
+            self.conn.close()
+            raise IndexStoreError(f"cannot upgrade keys file {self.path}: {exc}") from exc
+        # What an unknown id is checked against, so it costs what a known one does.
+        self._dummy = (secrets.token_bytes(SALT_BYTES), bytes(SCRYPT_DKLEN))
 
     def close(self) -> None:
         with self._lock:
@@ -186,8 +227,12 @@ class KeyStore:
         scope: str,
         groups: str | Iterable[str] | None = None,
         act_for: bool = False,
+        act_for_groups: str | Iterable[str] | None = None,
     ) -> tuple[KeyRecord, str]:
-        """Make a key. Returns its record and its secret, which is never shown again."""
+        """Make a key. Returns its record and its secret, which is never shown again.
+
+        ``act_for_groups``: the only groups an act-for key may claim for an end user.
+        """
         if not isinstance(name, str) or not NAME_PATTERN.match(name):
             raise AccessError(
                 f"key name {name!r} is not valid: use letters, digits, '.', '_' or '-', "
@@ -195,22 +240,29 @@ class KeyStore:
             )
         scope_rank(scope)
         group_set = check_groups(groups)
+        claimable = check_groups(act_for_groups, "act-for groups")
+        if claimable and not act_for:
+            raise AccessError("act-for groups are for keys with the act-for right (--act-for)")
         key_id = secrets.token_hex(6)
         secret = f"{PREFIX}{key_id}_{secrets.token_urlsafe(32)}"
         salt = secrets.token_bytes(SALT_BYTES)
         digest = scrypt(secret, salt)
-        record = KeyRecord(key_id, name, scope, group_set, bool(act_for), time.time())
+        record = KeyRecord(
+            key_id, name, scope, group_set, bool(act_for), time.time(), None, claimable
+        )
         with self._lock:
             try:
                 self.conn.execute(
-                    "INSERT INTO keys (id, name, scope, groups, act_for, salt, hash, scrypt_n, "
-                    "scrypt_r, scrypt_p, created_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                    "INSERT INTO keys (id, name, scope, groups, act_for, act_for_groups, salt, "
+                    "hash, scrypt_n, scrypt_r, scrypt_p, created_at) "
+                    "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
                     (
                         key_id,
                         name,
                         scope,
                         json.dumps(sorted(group_set)),
                         int(record.act_for),
+                        json.dumps(sorted(claimable)),
                         salt,
                         digest,
                         SCRYPT_N,
@@ -261,21 +313,14 @@ class KeyStore:
             self.conn.execute("UPDATE keys SET revoked_at = ? WHERE id = ?", (now, record.id))
             for digest in [d for d, k in self._verified.items() if k == record.id]:
                 del self._verified[digest]
-        return KeyRecord(
-            record.id,
-            record.name,
-            record.scope,
-            record.groups,
-            record.act_for,
-            record.created_at,
-            now,
-        )
+        return dataclasses.replace(record, revoked_at=now)
 
     def authenticate(self, secret: str) -> KeyRecord:
         """The live key whose secret this is, or AccessError saying why not.
 
         The row is read on every call, so revocation counts at once; scrypt runs
-        only the first time a secret is seen by this process.
+        only the first time a secret is seen by this process. TooManyAttempts
+        (an AccessError) when the check is held back: see :mod:`.backoff`.
         """
         key_id = key_id_of(secret)
         if key_id is None:
@@ -286,20 +331,33 @@ class KeyStore:
                 "WHERE id = ?",
                 (key_id,),
             ).fetchone()
+        n_columns = _COLUMNS.count(",") + 1
+        record = None if row is None else _record(row[:n_columns])
         if row is None:
-            raise AccessError("key not recognised: unknown id or wrong secret")
-        record = _record(row[:7])
-        salt, stored, n, r, p = row[7:]
+            (salt, stored), (n, r, p) = self._dummy, (SCRYPT_N, SCRYPT_R, SCRYPT_P)
+        else:
+            salt, stored, n, r, p = row[n_columns:]
         fingerprint = hashlib.sha256(secret.encode("utf-8")).digest()
         with self._lock:
-            known = self._verified.get(fingerprint) == key_id
+            known = row is not None and self._verified.get(fingerprint) == key_id
             if known:
                 self._verified.move_to_end(fingerprint)
         if not known:
-            with _CONCURRENT_CHECKS:
+            self.failures.admit(key_id)
+            if not _CONCURRENT_CHECKS.acquire(timeout=_CHECK_WAIT_SECONDS):
+                raise TooManyAttempts(
+                    "too many key checks in progress: try again shortly", _CHECK_WAIT_SECONDS
+                )
+            try:
                 candidate = scrypt(secret, salt, n, r, p)
-            if not hmac.compare_digest(candidate, stored):
+            finally:
+                _CONCURRENT_CHECKS.release()
+            matched = hmac.compare_digest(candidate, stored)  # for unknown ids too: same cost
+            if record is None or not matched:
+                self.failures.failed(key_id)
                 raise AccessError("key not recognised: unknown id or wrong secret")
+            self.failures.succeeded(key_id)
+        assert record is not None  # a cached or matched secret has a row
         # Only a holder of the secret learns that the key was revoked.
         if record.revoked:
             raise AccessError(

@@ -183,7 +183,8 @@ class PushRequest(BaseModel):
         None,
         max_length=100,
         description="Groups that may read it; by default from the front "
-        "matter or the access rules, else unrestricted. [] makes it unrestricted.",
+        "matter or the access rules, else unrestricted. [] makes it unrestricted. A key may "
+        "push only what it could read itself: groups that include none of the key's are a 403.",
     )
     tags: list[str] | None = Field(None, max_length=100, description="Tags for filtering.")
     source: str | None = Field(
@@ -221,7 +222,13 @@ class FeedbackRequest(BaseModel):
         None, ge=0, le=2**63 - 1, description="A passage; its document is judged."
     )
     grade: int = Field(..., ge=0, le=3, description="0 not relevant … 3 answers it fully.")
-    user: str | None = Field(None, max_length=200)
+    user: str | None = Field(
+        None,
+        max_length=200,
+        deprecated=True,
+        description="Ignored: the judgment is recorded under the name of the key that sends "
+        "it (see `user` in the answer). Accepted so that older clients keep working.",
+    )
 
 
 class FeedbackResponse(BaseModel):
@@ -229,6 +236,9 @@ class FeedbackResponse(BaseModel):
     query_id: str
     document_id: str
     grade: int
+    user: str | None = Field(
+        None, description="Who the judgment is recorded under: the key's name (none without keys)."
+    )
 
 
 class ContextRequest(FilterFields):

@@ -29,8 +29,8 @@ from sounding.service.app import create_app
 from sounding.service.keys import KeyStore
 from sounding.service.settings import ServiceSettings
 
-# (name, scope, groups, act_for), as `sounding keys create` takes them.
-KeySpec = tuple[str, str, str | None, bool]
+# (name, scope, groups, act_for[, act_for_groups]), as `sounding keys create` takes them.
+KeySpec = tuple[str, str, str | None, bool] | tuple[str, str, str | None, bool, str]
 
 
 def free_port() -> int:
@@ -66,12 +66,13 @@ def serving(app: FastAPI, *, socket: bool = False) -> Iterator[httpx.Client]:
     """A client for ``app``: in process (lifespan run, no socket) or over real uvicorn.
 
     Redirects are not followed in either case, as plain ``httpx`` does not follow them.
+    In process, requests come from a loopback address, as they do over uvicorn here.
     """
     if socket:
         with running(app) as url, httpx.Client(base_url=url) as client:
             yield client
     else:
-        with TestClient(app, follow_redirects=False) as client:
+        with TestClient(app, follow_redirects=False, client=("127.0.0.1", 50000)) as client:
             yield client
 
 
@@ -136,8 +137,8 @@ def served_index(
     specs = list(keys)
     if specs:
         with KeyStore(service_settings.keys_file) as store:
-            for name, scope, groups, act_for in specs:
-                secrets[name] = store.create(name, scope, groups, act_for)[1]
+            for name, scope, groups, act_for, *acting in specs:
+                secrets[name] = store.create(name, scope, groups, act_for, *acting)[1]
     app = create_app(service_settings, embedder=embedder)
     if app_hook is not None:
         app_hook(app)

@@ -1,7 +1,10 @@
 """``/documents/{id}``: read one document; push (``PUT``) or remove (``DELETE``) one.
 
 A document the caller may not read answers 404 exactly like one that does
-not exist, so its existence does not leak.
+not exist, so its existence does not leak. Whether a push or a delete may
+touch the stored document is decided by the indexer under the index lock
+(:mod:`sounding.indexer.write_access`), never from the served generation: a
+re-index may restrict the page while the push waits for the lock.
 """
 
 from __future__ import annotations
@@ -9,6 +12,8 @@ from __future__ import annotations
 import re
 import threading
 import time
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import replace
 from typing import Annotated, Any
 
@@ -16,13 +21,14 @@ from fastapi import APIRouter, Depends, HTTPException, Path, Query, Request
 from pydantic import ValidationError
 from sounding.indexer.access import parse_groups, parse_tags
 from sounding.indexer.build import PushReport, delete_document, push_document
-from sounding.indexer.errors import IndexLockedError, LoadError, SettingsError
+from sounding.indexer.errors import AccessError, IndexLockedError, LoadError, SettingsError
 from sounding.indexer.loaders import SUPPORTED_SUFFIXES, parse_document, upload_kind
 from sounding.indexer.reports import warnings_of
+from sounding.indexer.write_access import HiddenDocumentError
 
 from ..auth import ReadCaller, WriteCaller
-from ..deps import EngineDep, MaybeGenerationDep, ReaderDep, SettingsDep
-from ..filters import caller_filter, readable
+from ..deps import EngineDep, ReaderDep, SettingsDep
+from ..filters import caller_filter
 from ..schemas import DocumentResponse, ErrorResponse, PushRequest, PushResponse
 from ..views import document_view
 
@@ -38,7 +44,9 @@ _BLANK_GROUPS = (
     'the access rules (a JSON push may send "groups": [] for readable by everyone)'
 )
 # One push at a time per process; the index lock orders it against `sounding index` runs.
+# Both waits together last at most push_wait_seconds.
 _push_lock = threading.Lock()
+RETRY_AFTER_SECONDS = 30
 
 
 def check_document_id(document_id: str) -> str:
@@ -151,13 +159,32 @@ async def _push_body(request: Request) -> tuple[PushRequest, bytes, str]:
 
 
 def _locked(exc: IndexLockedError) -> HTTPException:
-    return HTTPException(503, f"{exc}", headers={"Retry-After": "30"})
+    return HTTPException(503, f"{exc}", headers={"Retry-After": str(RETRY_AFTER_SECONDS)})
+
+
+@contextmanager
+def _one_push(wait_seconds: float) -> Iterator[float]:
+    """Hold this process's push lock, waiting at most ``wait_seconds``; yields the time left
+    for the index lock. 503 with Retry-After when another push holds it that long."""
+    deadline = time.monotonic() + wait_seconds
+    if not _push_lock.acquire(timeout=wait_seconds):
+        raise HTTPException(
+            503,
+            f"another push to this service is still running after {wait_seconds:g} s "
+            "(push_wait_seconds); try again shortly",
+            headers={"Retry-After": str(RETRY_AFTER_SECONDS)},
+        )
+    try:
+        yield max(0.0, deadline - time.monotonic())
+    finally:
+        _push_lock.release()
 
 
 @router.put(
     "/documents/{document_id:path}",
     response_model=PushResponse,
     responses={
+        403: {"model": ErrorResponse},
         404: {"model": ErrorResponse},
         409: {"model": ErrorResponse},
         413: {"model": ErrorResponse},
@@ -193,20 +220,17 @@ def put_document(
     caller: WriteCaller,
     settings: SettingsDep,
     engine: EngineDep,
-    generation: MaybeGenerationDep,
     pushed: Annotated[tuple[PushRequest, bytes, str], Depends(_push_body)],
 ) -> PushResponse:
     """Add or replace a document; searchable when this returns (needs scope write).
 
-    JSON (`text` with a `format`) or a multipart upload (`file`, for PDFs too).
+    JSON (`text` with a `format`) or a multipart upload (`file`, for PDFs too). A key
+    may replace only documents it may read (else 404, as for an unknown id), and may
+    not push one restricted to groups it is not in (403: it could not change it again).
     """
     check_document_id(document_id)
     meta, data, kind = pushed
     collection = meta.collection or settings.push_collection
-    if generation is not None:
-        existing = generation.reader.document(document_id)
-        if existing is not None and readable(caller, existing) is None:
-            raise _not_found(document_id)  # not yours to see, so not yours to replace
     try:
         doc = parse_document(
             data,
@@ -226,7 +250,7 @@ def put_document(
         tags = None if meta.tags is None else parse_tags(meta.tags)
     except ValueError as exc:
         raise HTTPException(422, str(exc)) from None
-    with _push_lock:
+    with _one_push(settings.push_wait_seconds) as wait_seconds:
         try:
             report: PushReport = push_document(
                 settings,
@@ -235,10 +259,15 @@ def put_document(
                 collection,
                 groups=groups,
                 tags=tags,
-                wait_seconds=settings.push_wait_seconds,
+                wait_seconds=wait_seconds,
+                caller_groups=caller.groups,
             )
         except IndexLockedError as exc:
             raise _locked(exc) from None
+        except HiddenDocumentError:
+            raise _not_found(document_id) from None  # not yours to see, so not yours to replace
+        except AccessError as exc:
+            raise HTTPException(403, str(exc)) from None
         except SettingsError as exc:
             raise HTTPException(409, str(exc)) from None
         except LoadError as exc:
@@ -268,16 +297,19 @@ def remove_document(
     caller: WriteCaller,
     settings: SettingsDep,
     engine: EngineDep,
-    reader: ReaderDep,
+    _loaded: ReaderDep,  # 503 when no index is loaded; who may delete is decided below
 ) -> PushResponse:
-    """Remove a document from the index (needs scope write); 404 when there is none."""
+    """Remove a document from the index (needs scope write); 404 when there is none, or
+    when the key may not read it."""
     check_document_id(document_id)
-    if readable(caller, reader.document(document_id)) is None:
-        raise _not_found(document_id)
-    with _push_lock:
+    with _one_push(settings.push_wait_seconds) as wait_seconds:
         try:
             report = delete_document(
-                settings, engine.embedder, document_id, wait_seconds=settings.push_wait_seconds
+                settings,
+                engine.embedder,
+                document_id,
+                wait_seconds=wait_seconds,
+                caller_groups=caller.groups,
             )
         except IndexLockedError as exc:
             raise _locked(exc) from None

@@ -21,7 +21,8 @@ router = APIRouter(tags=["feedback"])
 def feedback(
     body: FeedbackRequest, reader: ReaderDep, judgments: JudgmentsDep, caller: ReadCaller
 ) -> FeedbackResponse:
-    """Store (query, document or passage, grade 0–3, user); export with `sounding judgments`."""
+    """Store (query, document or passage, grade 0–3, the key's name); export with
+    `sounding judgments`."""
     if body.document_id is None and body.chunk_id is None:
         raise HTTPException(422, "name the judged result: document_id or chunk_id")
     document_id = body.document_id
@@ -40,7 +41,10 @@ def feedback(
     assert document_id is not None
     if reader.document(document_id, where) is None:
         raise HTTPException(404, f"no document with id {document_id!r} in the index")
-    # The judge is the key's name unless the body names a person (a bot judging for one).
-    user = body.user or (None if caller.anonymous else caller.name)
+    # The judge is the key that sent it; a `user` in the body is accepted but ignored, so a
+    # caller cannot put a judgment under someone else's name.
+    user = None if caller.anonymous else caller.name
     j = judgments.record(body.query, document_id, body.grade, chunk_id=body.chunk_id, user=user)
-    return FeedbackResponse(id=j.id, query_id=j.query_id, document_id=j.document_id, grade=j.grade)
+    return FeedbackResponse(
+        id=j.id, query_id=j.query_id, document_id=j.document_id, grade=j.grade, user=user
+    )

@@ -29,8 +29,8 @@ def keys_file_options(f):
     short_help="create, list and revoke API keys",
     help="API keys for the service: each has a scope (read < write < admin), the "
     "groups whose restricted documents it may read, and optionally the act-for right "
-    "(send an end user's groups in X-Sounding-On-Behalf-Of). Only a salted scrypt hash "
-    "of each key is stored.",
+    "(send an end user's groups in X-Sounding-On-Behalf-Of, among the groups it was "
+    "given to act for). Only a salted scrypt hash of each key is stored.",
     epilog=example(
         "examples:\n  sounding keys create --name wiki-search --scope read --groups hr\n"
         "  sounding keys list\n  sounding keys revoke wiki-search"
@@ -48,7 +48,8 @@ def keys_group() -> None:
     help="Make a key and print its secret on stdout, once: only its hash is kept.",
     epilog=example(
         "examples:\n  sounding keys create --name ana --scope read --groups hr,finance\n"
-        "  sounding keys create --name chat-bot --scope read --act-for > chat-bot.key"
+        "  sounding keys create --name chat-bot --scope read --act-for \\\n"
+        "      --act-for-groups hr,finance,ops > chat-bot.key"
     ),
 )
 @keys_file_options
@@ -70,6 +71,13 @@ def keys_group() -> None:
     is_flag=True,
     help="the key may send an end user's groups in X-Sounding-On-Behalf-Of",
 )
+@click.option(
+    "--act-for-groups",
+    metavar="G1,G2",
+    default="",
+    help="with --act-for: the only groups the key may claim for an end user "
+    "(default: none, so it may act only for users in no group)",
+)
 def create_command(
     index_dir: str | None,
     keys_path: str | None,
@@ -77,18 +85,23 @@ def create_command(
     scope: str,
     groups: str,
     act_for: bool,
+    act_for_groups: str,
 ) -> int:
     from sounding.service.keys import KeyStore
 
+    if act_for_groups.strip() and not act_for:
+        raise SettingsError("--act-for-groups needs --act-for")
     config = settings(index_dir=index_dir, keys_path=keys_path)
     with KeyStore(config.keys_file) as store:
-        record, secret = store.create(name, scope, groups, act_for)
+        record, secret = store.create(name, scope, groups, act_for, act_for_groups)
     click.echo(secret)
     named = ",".join(sorted(record.groups)) or "none"
+    acting = ""
+    if record.act_for:
+        acting = f", act-for groups {','.join(sorted(record.act_for_groups)) or 'none'}"
     click.echo(
         f"sounding: created key {record.name!r} (id {record.id}, scope {record.scope}, "
-        f"groups {named}{', act-for' if record.act_for else ''}); store the secret above "
-        "safely now: it is not shown again",
+        f"groups {named}{acting}); store the secret above safely now: it is not shown again",
         err=True,
     )
     return 0
@@ -97,7 +110,7 @@ def create_command(
 @keys_group.command(
     "list",
     short_help="show every key (never secrets)",
-    help="Show every key, live and revoked: id, name, scope, groups, act-for.",
+    help="Show every key, live and revoked: id, name, scope, groups, act-for groups.",
     epilog=example("example:\n  sounding keys list --json"),
 )
 @keys_file_options
@@ -121,9 +134,10 @@ def list_command(index_dir: str | None, keys_path: str | None, as_json: bool) ->
     for r in records:
         j = r.to_json()
         state = f"revoked {j['revoked_at']}" if r.revoked else "live"
+        acting = f"  act-for={','.join(j['act_for_groups']) or '-'}" if r.act_for else ""
         click.echo(
             f"{r.id}  {r.name:<20} {r.scope:<5}  groups={','.join(j['groups']) or '-'}"
-            f"{'  act-for' if r.act_for else ''}  created {j['created_at']}  {state}"
+            f"{acting}  created {j['created_at']}  {state}"
         )
     return 0
 

@@ -10,6 +10,7 @@ shows up as the marker, the title or the id in the response body.
 from __future__ import annotations
 
 import json
+import secrets
 from pathlib import Path
 
 import httpx
@@ -38,9 +39,10 @@ KEYS = [
     ("reader", "read", "", False),
     ("ops", "read", "ops", False),
     ("hr", "read", "hr", False),
-    ("bot", "read", "ops", True),
+    ("bot", "read", "ops", True, "hr,ops,it,x"),
     ("writer", "write", "", False),
     ("hr-writer", "write", "hr", False),
+    ("ops-writer", "write", "ops", False),
     ("admin", "admin", "", False),
 ]
 
@@ -186,11 +188,12 @@ def test_every_endpoint_but_health_needs_a_key(
     r = client.request(method, path, json=body)
     assert r.status_code == 401
     assert r.headers["www-authenticate"].startswith("Bearer")  # RFC 6750 section 3
+    # A fresh unknown id each time: repeated failures of one id are backed off (429).
     bad = client.request(
         method,
         path,
         json=body,
-        headers={"Authorization": "Bearer snd_000000000000_" + "A" * 43},
+        headers={"Authorization": f"Bearer snd_{secrets.token_hex(6)}_" + "A" * 43},
     )
     assert bad.status_code == 401
     assert client.get("/health").status_code == 200
@@ -267,10 +270,11 @@ def test_push_is_searchable_when_the_call_returns_then_delete(server) -> None:
         },
     ).json()
     assert again["action"] == "unchanged" and again["generation"] == body["generation"]
-    # Restrict it: readers outside the group lose it at once.
+    # Restrict it (a key of the group does: a writer outside it may not): readers outside
+    # the group lose it at once.
     client.put(
         "/documents/api/sluice.md",
-        headers=w,
+        headers=_auth(keys, "hr-writer"),
         json={
             "text": "# Sluice gates\n\nThe quernstone sluice opens at dawn.\n",
             "groups": ["hr"],
@@ -310,7 +314,7 @@ def test_upload_a_file_with_metadata(server) -> None:
     )
     r = client.put(
         "/documents/api/weir.html",
-        headers=_auth(keys, "writer"),
+        headers=_auth(keys, "ops-writer"),  # a key may push only what it may read
         files={"file": ("weir.html", page, "text/html")},
         data={"collection": "uploads", "tags": "weir, logs", "groups": "ops"},
     )

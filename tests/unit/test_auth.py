@@ -79,12 +79,12 @@ def served(tmp_path_factory: pytest.TempPathFactory):
     settings = ServiceSettings(index_dir=tmp_path_factory.mktemp("idx"))
     with KeyStore(settings.keys_file) as store:
         secrets = {
-            name: store.create(name, scope, groups, act_for)[1]
-            for name, scope, groups, act_for in [
+            name: store.create(name, scope, groups, act_for, *acting)[1]
+            for name, scope, groups, act_for, *acting in [
                 ("reader", "read", "hr", False),
                 ("writer", "write", "", False),
                 ("boss", "admin", "finance,hr", False),
-                ("chat-bot", "read", "bots", True),
+                ("chat-bot", "read", "bots", True, "finance,hr,HR_2,ops.oncall"),
                 ("doomed", "read", "", False),
             ]
         }

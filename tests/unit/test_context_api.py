@@ -36,7 +36,7 @@ def service(serve_index: ServeIndex) -> tuple[httpx.Client, dict[str, str]]:
         keys=[
             ("reader", "read", None, False),
             ("hr-reader", "read", "hr", False),
-            ("bot", "read", None, True),
+            ("bot", "read", None, True, "staff,hr"),
         ],
         max_query_chars=200,
         chunk_tokens=64,

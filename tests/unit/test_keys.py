@@ -51,6 +51,7 @@ def test_secret_is_shown_once_and_only_its_hash_is_stored(store: KeyStore) -> No
         "scope",
         "groups",
         "act_for",
+        "act_for_groups",
         "created_at",
         "revoked_at",
     }
