@@ -103,7 +103,7 @@ class IndexSettings(BaseSettings):
         description="Most bytes of metadata (front matter, corpus fields) one document may "
         "store, as JSON; every search that returns the document loads it.",
     )
-    # Office files, mail and scans (indexer/loaders/_zipcheck.py, _xlsx.py, _scan.py).
+    # Office files, mail and scans (indexer/loaders/_zipcheck.py, _xlsx.py, _scanned.py).
     max_unpacked_bytes: int = Field(
         128 * 2**20,
         ge=1,

@@ -4,7 +4,7 @@ The subject is the title; from, to, cc and date are metadata and open the
 text, so "the mail from Priya about the budget" finds it. The plain-text part
 is the body, or the HTML part through the HTML loader. Attachments are handed
 back as bytes: the registry indexes those of supported types as documents of
-their own (:func:`..loaders.parse_documents`).
+their own (``parse_document(..., into=[...])``).
 """
 
 from __future__ import annotations
