@@ -36,6 +36,7 @@ except ImportError:  # older FastAPI: included routes are in app.routes already
 
 from sounding.indexer import __version__
 from sounding.indexer.query import MODES as _MODES
+from sounding.indexer.selection import SearchFilter
 from sounding.indexer.store import IndexReader, read_last_run
 
 from .limits import ASGIApp, Message, Receive, Scope, Send
@@ -111,6 +112,7 @@ class _IndexCollector(Collector):
     def __init__(self, index_dir: Path) -> None:
         self.index_dir = Path(index_dir)
         self.reader: IndexReader | None = None  # set by ServiceMetrics.render, per scrape
+        self.where: SearchFilter | None = None  # what the scraping key may read
 
     def describe(self) -> list[Metric]:
         return []  # values exist only at scrape time; nothing to check at registration
@@ -123,7 +125,10 @@ class _IndexCollector(Collector):
         loaded.add_metric([], 1.0 if reader is not None else 0.0)
         yield loaded
         if reader is not None:
-            docs, chunks = reader.counts()
+            # Only what the scraping key may read: a total would count restricted pages.
+            docs, chunks = (
+                reader.counts() if self.where is None else reader.visible_counts(self.where)
+            )
             for name, doc, value in (
                 ("sounding_index_documents", "Documents in the served generation.", docs),
                 ("sounding_index_chunks", "Chunks (passages) in the served generation.", chunks),
@@ -206,14 +211,15 @@ class ServiceMetrics:
         self.requests.labels(route, method, mode, code).inc()
         self.latency.labels(route, method, mode).observe(seconds)
 
-    def render(self, reader: IndexReader | None) -> bytes:
-        """The text exposition, with index gauges read from ``reader`` (None: no index) now."""
+    def render(self, reader: IndexReader | None, where: SearchFilter | None = None) -> bytes:
+        """The text exposition, with index gauges read from ``reader`` (None: no index) now;
+        the document and chunk counts are of what ``where`` admits (None: all)."""
         with self._lock:  # one scrape at a time sees its own reader
-            self._index.reader = reader
+            self._index.reader, self._index.where = reader, where
             try:
                 return generate_latest(self.registry)
             finally:
-                self._index.reader = None
+                self._index.reader, self._index.where = None, None
 
 
 class _Static(Collector):

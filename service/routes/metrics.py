@@ -5,7 +5,9 @@ from __future__ import annotations
 
 from fastapi import APIRouter, Response
 
+from ..auth import ReadCaller
 from ..deps import MaybeGenerationDep, MetricsDep
+from ..filters import caller_filter
 from ..metrics import CONTENT_TYPE
 
 # A read key is required: create_app includes this router with the dependency.
@@ -22,7 +24,11 @@ router = APIRouter(tags=["operations"])
         }
     },
 )
-def metrics(service_metrics: MetricsDep, generation: MaybeGenerationDep) -> Response:
-    """Request counts and latency histograms per route and mode, index size, last re-index."""
+def metrics(
+    service_metrics: MetricsDep, generation: MaybeGenerationDep, caller: ReadCaller
+) -> Response:
+    """Request counts and latency histograms per route and mode, the size of what the key
+    may read, last re-index."""
     reader = generation.reader if generation is not None else None
-    return Response(service_metrics.render(reader), media_type=CONTENT_TYPE)
+    body = service_metrics.render(reader, caller_filter(caller))
+    return Response(body, media_type=CONTENT_TYPE)
