@@ -183,3 +183,20 @@ def test_a_folder_of_office_files_is_indexed_and_searchable(tmp_path: Path) -> N
     settings = IndexSettings(index_dir=tmp_path / "index")
     report = refresh_index([root], settings, HashingEmbedder(16))
     assert report.skipped == [] and report.documents == 6
+
+
+def test_slide_numbers_reach_search_and_context_citations(serve_index) -> None:
+    deck = pptx_bytes(
+        [
+            ("Welcome", ["Board pack"], ""),
+            ("Capital plan", ["Mains renewal: 18 km in Ashgrove"], ""),
+        ]
+    )
+    served = serve_index(
+        {"decks/board.pptx": deck}, embedder=HashingEmbedder(16), keys=[("r", "read", "", False)]
+    )
+    query = {"query": "mains renewal Ashgrove", "mode": "lexical"}
+    hits = served.client.post("/search", json={**query, "k": 1}, headers=served.auth("r")).json()
+    assert hits["results"][0]["page"] == 2
+    context = served.client.post("/context", json=query, headers=served.auth("r")).json()
+    assert "page 2" in context["text"]
