@@ -3,9 +3,8 @@
     .venv/bin/python scripts/make_demo_office.py [--out demo_corpus]
 
 Everything here is invented. The files are committed; run this again to rebuild
-them after changing the text below. Zip members and the scan's PDF get fixed
-dates; openpyxl stamps its save time into a workbook, so a rebuilt .xlsx (and the
-mail it is attached to) differs in that date only.
+them after changing the text below. Zip members, document properties and the
+scan's PDF get fixed dates, so a rebuild of unchanged text gives the same bytes.
 Fonts: DejaVu Sans from Debian's fonts-dejavu-core (apt-get install fonts-dejavu-core).
 """
 
@@ -14,6 +13,7 @@ from __future__ import annotations
 import argparse
 import datetime as dt
 import io
+import re
 import zipfile
 from email import policy
 from email.message import EmailMessage
@@ -42,7 +42,14 @@ def fixed_zip(data: bytes) -> bytes:
             copy = zipfile.ZipInfo(info.filename, date_time=FIXED)
             copy.compress_type = info.compress_type
             copy.external_attr = info.external_attr
-            target.writestr(copy, source.read(info))
+            body = source.read(info)
+            if info.filename == "docProps/core.xml":  # openpyxl stamps its save time here
+                body = re.sub(
+                    rb"(<dcterms:modified[^>]*>)[^<]*(</dcterms:modified>)",
+                    rb"\g<1>2026-10-01T09:00:00Z\g<2>",
+                    body,
+                )
+            target.writestr(copy, body)
     return out.getvalue()
 
 
@@ -72,19 +79,23 @@ def fleet_policy() -> bytes:
         "Each van carries a fuel card locked to diesel and AdBlue. Enter the odometer reading "
         "at every fill; a missing reading is queried by Finance within a week."
     )
-    d.add_heading("Private cars on cooperative business", level=1)
-    d.add_paragraph("Mileage is claimed through the expenses system at these rates:")
+    d.add_heading("The van fleet", level=1)
+    d.add_paragraph("Each van belongs to a base and returns there at the end of the day:")
     rows = [
-        ("Vehicle", "Rate per mile", "Passenger supplement"),
-        ("Car, first 10,000 miles in the year", "45p", "5p"),
-        ("Car, after 10,000 miles", "25p", "5p"),
-        ("Motorcycle", "24p", "none"),
-        ("Bicycle", "20p", "none"),
+        ("Van", "Base", "Type", "Fitted for"),
+        ("QW-14", "Sallow Lane depot", "Panel van, 3.5 t", "Network repairs, standpipes"),
+        ("QW-17", "Millrace treatment works", "Crew van, 6 seats", "Process and chemical work"),
+        ("QW-21", "Ferncombe pumping station", "Electric panel van", "Instrument technicians"),
+        ("QW-22", "Sallow Lane depot", "Electric panel van", "Meter fitters"),
     ]
-    table = d.add_table(rows=len(rows), cols=3)
+    table = d.add_table(rows=len(rows), cols=4)
     for i, row in enumerate(rows):
         for j, value in enumerate(row):
             table.cell(i, j).text = value
+    d.add_paragraph(
+        "Private cars used on cooperative business are claimed as mileage under the expense "
+        "claims policy, not under this one."
+    )
     d.add_heading("Telematics and driving standards", level=1)
     d.add_paragraph(
         "Every van has a Trackwise telematics unit. Harsh braking and speeding events are "
@@ -102,7 +113,7 @@ def fleet_policy() -> bytes:
     props.last_modified_by = "Tomasz Wray"
     props.created = props.modified = WHEN
     props.subject = "Fleet"
-    props.keywords = "policy, fleet, vans, mileage"
+    props.keywords = "policy, fleet, vans"
     out = io.BytesIO()
     d.save(out)
     return fixed_zip(out.getvalue())
@@ -191,14 +202,14 @@ def asset_register() -> bytes:
     generators = book.create_sheet("Generators")
     generators.append(["Asset tag", "Site", "Rating (kVA)", "Fuel (litres)", "Run time (hours)"])
     generators.append(["GEN-007", "Ferncombe pumping station", 250, 900, "=ROUND(D2/41,0)"])
-    generators.append(["GEN-009", "Millrace treatment works", 500, 2400, "=ROUND(D3/78,0)"])
+    generators.append(["GEN-009", "Millrace treatment works", 500, 2400, "=ROUND(D3/66,0)"])
     book.properties.title = "Asset register: pumps and generators"
     book.properties.creator = "Dafydd Rook"
     book.properties.created = book.properties.modified = WHEN
     out = io.BytesIO()
     book.save(out)
     # Excel stores a formula's last result beside it; openpyxl writes none, so add them.
-    return fixed_zip(_cache(out.getvalue(), "xl/worksheets/sheet2.xml", {"E2": "22", "E3": "31"}))
+    return fixed_zip(_cache(out.getvalue(), "xl/worksheets/sheet2.xml", {"E2": "22", "E3": "36"}))
 
 
 def _cache(data: bytes, part: str, values: dict[str, str]) -> bytes:
