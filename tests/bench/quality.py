@@ -6,6 +6,9 @@ Prints a table: collection × precision × mode (dense, lexical, hybrid) × nDCG
 Figures come from ``evaluate_collection``; indexes live in the evaluation cache --cache (kept
 between runs, one entry per corpus, encoder, precision and chunk settings) or a scratch folder;
 "build s" of a reused index is that of the run that built it.
+``--demo`` first prints top-1 share and MRR@10 of the demo wiki's judged questions per mode
+(tests/integration/demo_questions.json, old and new questions apart; the index is built at
+--demo-index when missing); then only the collections named are run.
 ``--precision fp32 bf16`` builds and queries each collection in both encoder precisions; it
 also ranks the fp32 index with bf16 query vectors (prec ``fp32>bf16``), what a service that
 switched precision sees before a re-index (the fingerprint ignores precision).
@@ -29,11 +32,33 @@ from sounding.indexer.search import MODES  # noqa: E402
 from sounding.indexer.settings import IndexSettings, searcher_factory  # noqa: E402
 from sounding.indexer.store import IndexReader  # noqa: E402
 
+from tests.bench.demo import (  # noqa: E402
+    DEFAULT_INDEX,
+    answer_rank,
+    demo_searcher,
+    questions,
+    top1_and_mrr,
+)
 from tests.conftest import BENCHMARKS_DIR  # noqa: E402
 
 
 def percentile(values: list[float], q: float) -> float:
     return statistics.quantiles(values, n=100, method="inclusive")[int(q) - 1]
+
+
+def demo_table(index_dir: Path) -> None:
+    """Top-1 share and MRR@10 on the demo questions, per mode and question set."""
+    searcher = demo_searcher(index_dir)
+    judged = questions()
+    print(f"{'demo set':<10}{'mode':<9}{'top-1':>8}{'MRR@10':>8}{'questions':>10}")
+    for mode in MODES:
+        ranks = {q["question"]: answer_rank(searcher, q, mode) for q in judged}
+        for name in ("old", "new", "all"):
+            group = [ranks[q["question"]] for q in judged if name in ("all", q.get("set", "old"))]
+            top1, mrr = top1_and_mrr(group)
+            print(f"{name:<10}{mode:<9}{top1:>8.3f}{mrr:>8.3f}{len(group):>10}", flush=True)
+    searcher.reader.close()
+    print()
 
 
 def main() -> None:
@@ -47,8 +72,14 @@ def main() -> None:
         choices=["auto", "fp32", "bf16"],
         help="encoder precision(s) to compare",
     )
+    parser.add_argument("--demo", action="store_true", help="top-1 and MRR@10 on the demo")
+    parser.add_argument("--demo-index", type=Path, default=DEFAULT_INDEX)
     parser.add_argument("collections", nargs="*", help="default: every collection found")
     args = parser.parse_args()
+    if args.demo:
+        demo_table(args.demo_index)
+        if not args.collections:
+            return
     names = args.collections or sorted(
         d.name for d in BENCHMARKS_DIR.iterdir() if (d / "qrels.tsv").is_file()
     )
