@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import logging
 import math
-from collections.abc import AsyncIterator
+import os
+from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager
 
 import faiss
@@ -12,7 +13,8 @@ from fastapi import Depends, FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from sounding.indexer import __version__
-from sounding.indexer.embedding import Embedder
+from sounding.indexer.batching import QueryBatcher
+from sounding.indexer.embedding import Embedder, SentenceTransformerEmbedder, usable_cores
 from sounding.indexer.errors import QueryError, SoundingError
 from sounding.indexer.judgments import JudgmentStore
 
@@ -48,10 +50,12 @@ def create_app(
             else settings.model_copy(update={"threads": settings.query_threads}).embedder()
         )
         enc.encode(["warm-up"])  # load weights now, not on the first user's query
+        batcher = _query_batcher(settings, enc, lambda: app.state.engine.in_flight)
+        served = batcher if batcher is not None else enc
         app.state.engine = Engine(
             settings.index_dir,
-            enc,
-            settings.searcher_factory(enc),
+            served,
+            settings.searcher_factory(served),
             settings.reload_check_seconds,
         )
         app.state.judgments = JudgmentStore(settings.judgments_file)
@@ -60,6 +64,8 @@ def create_app(
             yield
         finally:
             app.state.engine.close()
+            if batcher is not None:
+                batcher.close()
             app.state.keys.close()
             app.state.judgments.close()
 
@@ -125,6 +131,42 @@ def create_app(
         return JSONResponse(status_code=500, content={"detail": INTERNAL_ERROR})
 
     return app
+
+
+def _query_batcher(
+    settings: ServiceSettings, enc: Embedder, in_flight: Callable[[], int]
+) -> QueryBatcher | None:
+    """The batcher in front of the service's encoder, or None when query_batch is 1.
+
+    A real encoder gets its torch threads set per batch: a lone query on an idle
+    service uses query_idle_threads (every core), anything else query_threads.
+    """
+    if settings.query_batch <= 1:
+        return None
+    set_threads: Callable[[int], None] | None = None
+    if isinstance(enc, SentenceTransformerEmbedder):
+        import torch
+
+        set_threads = torch.set_num_threads
+    return QueryBatcher(
+        enc,
+        max_batch=settings.query_batch,
+        wait_ms=settings.query_batch_wait_ms,
+        in_flight=in_flight,
+        set_threads=set_threads,
+        idle_threads=settings.query_idle_threads or usable_cores(),
+        busy_threads=settings.query_threads,
+        machine_idle=_machine_idle,
+    )
+
+
+def _machine_idle() -> bool:
+    """Whether the machine has a core to spare: the 1-minute load average (every runnable
+    process, this one included) is at least half a core below the cores we may use."""
+    try:
+        return os.getloadavg()[0] <= usable_cores() - 0.5
+    except OSError:  # pragma: no cover - no load average on this system
+        return False
 
 
 def _plain(errors: object) -> object:

@@ -98,7 +98,19 @@ class Engine:
         self._checked = 0.0
         self._lock = threading.Lock()  # loading and swapping only; reads never take it
         self.error: str | None = None
+        self._in_flight = 0  # requests under way (deps.held_generation_or_none counts them)
+        self._count_lock = threading.Lock()
         self._load()
+
+    @property
+    def in_flight(self) -> int:
+        """Requests holding a generation right now: the query batcher's hint of more to come."""
+        return self._in_flight
+
+    def count_request(self, delta: int) -> None:
+        """One request more (+1) or fewer (-1) under way."""
+        with self._count_lock:
+            self._in_flight += delta
 
     def _manifest_stamp(self) -> tuple[int, int] | None:
         try:
@@ -137,6 +149,10 @@ class Engine:
         )
         if old is not None:
             old.release()  # closes once the requests still holding it are done
+
+    def refresh_due(self) -> bool:
+        """Whether :meth:`hold` would check the manifest now (and perhaps load a generation)."""
+        return time.monotonic() - self._checked >= self.check_seconds
 
     def _refresh(self) -> None:
         """Load a newer generation if the manifest changed (at most every check_seconds)."""

@@ -127,8 +127,11 @@ def json_problem(body: bytes, max_depth: int = DEFAULT_MAX_JSON_DEPTH) -> str | 
 
     Invalid JSON gives None: the parser's own error (FastAPI's 422) is clearer.
     """
-    depth = nesting_depth(body, max_depth)
-    if depth > max_depth:
+    # Nesting cannot pass the number of brackets and braces: counting them (in C) spares
+    # the byte-by-byte scan for every ordinary body, which a long query made cost.
+    if body.count(b"[") + body.count(b"{") > max_depth and nesting_depth(body, max_depth) > (
+        max_depth
+    ):
         return f"JSON is nested more than {max_depth} levels deep (the limit)"
     try:
         value = json.loads(body, parse_constant=_refuse_constant)

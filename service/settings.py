@@ -22,7 +22,14 @@ class ServiceSettings(IndexSettings):
 
     host: str = Field("127.0.0.1", description="Address to listen on; loopback by default.")
     port: int = Field(8757, ge=1, le=65535, description="TCP port to listen on.")
-    max_query_chars: int = Field(1000, ge=1, description="Longest query accepted, in characters.")
+    max_query_chars: int = Field(
+        4000,
+        ge=1,
+        description="Longest query accepted, in characters. Real questions run to 2,000 "
+        "and more. The encoder reads its window (256 word pieces for MiniLM, roughly 1,000 "
+        "characters of English); the lexical ranking reads past it, up to its first 64 "
+        "content words (lexical.query_terms).",
+    )
     max_k: int = Field(100, ge=1, le=1000, description="Most passages one search may ask for.")
     max_context_tokens: int = Field(
         8192, ge=1, description="Largest budget of a /context request, in encoder tokens."
@@ -55,6 +62,29 @@ class ServiceSettings(IndexSettings):
         description="Torch threads of the service's encoder (queries, pushes). "
         "One: with a nightly re-index using every core beside it, a query's encoding took "
         "400 ms at two threads and 10 ms at one (tests/bench/encode.py on 2 cores).",
+    )
+    query_batch: int = Field(
+        8,
+        ge=1,
+        le=256,
+        description="Most concurrent queries encoded in one encoder call. One turns "
+        "batching off: each request encodes its own query in its own thread, as before.",
+    )
+    query_batch_wait_ms: float = Field(
+        2.0,
+        ge=0,
+        le=100,
+        description="How long the encoder waits for a fuller batch, in milliseconds, and only "
+        "while other requests are under way: a lone query never waits.",
+    )
+    query_idle_threads: int = Field(
+        0,
+        ge=0,
+        le=256,
+        description="Torch threads for a lone query while no other request is under way "
+        "and the machine's 1-minute load average leaves half a core free (0: every usable "
+        "core). Batches, and queries on a busy machine, use query_threads. Applies only "
+        "with batching on (query_batch above 1).",
     )
     max_upload_bytes: int = Field(
         20 * 2**20, ge=1, description="Largest document accepted by PUT /documents/{id}, in bytes."

@@ -20,6 +20,14 @@ bm25s: document ids and scores; sounding: ``Searcher.search(q, 10)`` passages wi
 Quality: nDCG@10 and Recall@100 (pytrec_eval, means over judged queries) of top-100
 document rankings (sounding: ``Searcher.rank_documents``, a document scores as its best chunk).
 Ratios are sounding / baseline: below 1 is better for times, above 1 for quality.
+
+``--http``: also ``sounding hybrid HTTP``: the index just built served by ``sounding serve``
+(its own process, loopback, keys off, the service's defaults: query batching, threads),
+queried one at a time over HTTP with the same texts; quality columns repeat the hybrid row.
+``--paragraphs N``: latencies (not quality: joined queries have no judgments) over
+paragraphs of at least N characters (at most 2,000), made by joining consecutive judged
+queries, as a chat bot sends a question with its context. cacm and med have the longest
+queries of the shared collections.
 """
 
 from __future__ import annotations
@@ -83,7 +91,7 @@ def read_records(path: Path) -> list[dict]:
         return [json.loads(line) for line in fh if line.strip()]
 
 
-def naive(records, ids, texts, qrels) -> Row:
+def naive(records, ids, texts, qrels, timed) -> Row:
     quiet_offline()  # offline machine; keeps the loading bar out of the table
     from sentence_transformers import SentenceTransformer, util
 
@@ -104,13 +112,13 @@ def naive(records, ids, texts, qrels) -> Row:
         run[qid] = {str(records[h["corpus_id"]]["_id"]): float(h["score"]) for h in hits}
     means, _ = score_run(run, qrels)
     p50, p99 = latencies(
-        texts,
+        timed,
         lambda q: util.semantic_search(model.encode(q, convert_to_tensor=True), corpus, top_k=10),
     )
     return Row("naive st+semantic_search", index_s, p50, p99, means["ndcg@10"], means["recall@100"])
 
 
-def bm25(records, ids, texts, qrels) -> Row:
+def bm25(records, ids, texts, qrels, timed) -> Row:
     import bm25s
     import Stemmer
 
@@ -142,11 +150,45 @@ def bm25(records, ids, texts, qrels) -> Row:
             str(records[i]["_id"]): float(s) for i, s in zip(docs[0], scores[0], strict=True)
         }
     means, _ = score_run(run, qrels)
-    p50, p99 = latencies(texts, lambda q: ask(q, 10))
+    p50, p99 = latencies(timed, lambda q: ask(q, 10))
     return Row("bm25s", index_s, p50, p99, means["ndcg@10"], means["recall@100"])
 
 
-def sounding(folder: Path, texts, precision: str, cache: Path) -> list[Row]:
+def paragraphs(texts: list[str], chars: int) -> list[str]:
+    """Consecutive texts joined into paragraphs of ``chars`` to 2,000 characters."""
+    out: list[str] = []
+    n = len(texts)
+    for start in range(n):
+        parts: list[str] = []
+        i = start
+        while sum(len(p) + 1 for p in parts) < chars and i < start + n:
+            parts.append(texts[i % n].strip())
+            i += 1
+        out.append(" ".join(parts)[:2000])
+    return out
+
+
+def over_http(index_dir: Path, texts: list[str], hybrid: Row) -> Row:
+    """Single-client hybrid latency against `sounding serve` on this index."""
+    import httpx
+
+    from tests.bench.load import serving
+
+    with serving(index_dir) as (base, _), httpx.Client(base_url=base, timeout=60) as http:
+
+        def ask(q: str) -> None:
+            r = http.post("/search", json={"query": q, "k": 10, "mode": "hybrid"})
+            r.raise_for_status()
+
+        for q in texts[:20]:
+            ask(q)
+        p50, p99 = latencies(texts, ask)
+    return Row("sounding hybrid HTTP", hybrid.index_s, p50, p99, hybrid.ndcg, hybrid.recall)
+
+
+def sounding(
+    folder: Path, texts, precision: str, cache: Path, timed: list[str], http: bool
+) -> list[Row]:
     embedder = SentenceTransformerEmbedder(precision=precision)  # settings' default batch
     embedder.encode(["warm up"])
     settings = IndexSettings()
@@ -155,7 +197,7 @@ def sounding(folder: Path, texts, precision: str, cache: Path) -> list[Row]:
         # The first mode builds the index into the cache; the others rank the same index.
         result = evaluate_collection(folder, mode, settings, embedder, cache_dir=cache)
         searcher = searcher_factory(settings, embedder)(IndexReader(result.index.index_dir))
-        p50, p99 = latencies(texts, lambda q, m=mode, s=searcher: s.search(q, 10, mode=m))
+        p50, p99 = latencies(timed, lambda q, m=mode, s=searcher: s.search(q, 10, mode=m))
         searcher.reader.close()
         rows.append(
             Row(
@@ -167,6 +209,8 @@ def sounding(folder: Path, texts, precision: str, cache: Path) -> list[Row]:
                 result.means["recall@100"],
             )
         )
+        if http and mode == "hybrid":
+            rows.append(over_http(result.index.index_dir, timed, rows[-1]))
     return rows
 
 
@@ -189,6 +233,8 @@ def main() -> None:
         choices=["auto", "fp32", "bf16"],
         help="sounding encoder precision(s)",
     )
+    parser.add_argument("--http", action="store_true", help="also hybrid over HTTP")
+    parser.add_argument("--paragraphs", type=int, default=0, help="time paragraphs of N chars")
     args = parser.parse_args()
 
     folder = args.benchmarks / args.collection
@@ -198,11 +244,19 @@ def main() -> None:
     texts = [queries[q] for q in ids]
     records = read_records(corpus)
     print(f"{args.collection}: {len(records)} documents, {len(ids)} judged queries", flush=True)
+    timed = paragraphs(texts, args.paragraphs) if args.paragraphs else texts
+    print(
+        f"timed texts: {len(timed)}, median {statistics.median(len(t) for t in timed):.0f} "
+        f"characters, longest {max(len(t) for t in timed)}",
+        flush=True,
+    )
 
-    baselines = [naive(records, ids, texts, qrels), bm25(records, ids, texts, qrels)]
+    baselines = [naive(records, ids, texts, qrels, timed), bm25(records, ids, texts, qrels, timed)]
     with tempfile.TemporaryDirectory(prefix="sounding-compare-") as scratch:
         cache = args.cache or Path(scratch)
-        ours = [r for p in args.precision for r in sounding(folder, texts, p, cache)]
+        ours = [
+            r for p in args.precision for r in sounding(folder, texts, p, cache, timed, args.http)
+        ]
     head = f"{'system':<28}{'index s':>9}{'p50 ms':>8}{'p99 ms':>8}{'nDCG@10':>9}{'R@100':>8}"
     print(head)
     for r in baselines + ours:

@@ -1,5 +1,11 @@
 """Load on loopback: python tests/bench/load.py [--chunks N ...] [--clients 8] [--seconds 20].
 
+``--variants off on`` serves each index once per variant, one after the other in one run:
+``off`` with query batching off (SOUNDING_QUERY_BATCH=1: each request encodes its own
+query, as before batching), ``on`` with the defaults; any other variant is a list of
+SOUNDING_ settings, e.g. ``SOUNDING_QUERY_BATCH=16,SOUNDING_QUERY_BATCH_WAIT_MS=4``
+(or ``PYTHONPATH=...`` to serve another copy of the code, such as the last commit's).
+
 For each index size, builds (or reuses, under --cache) a synthetic index: documents of
 10 chunks whose text draws Zipf-distributed words from a 5,000-word vocabulary and whose
 vectors are clustered synthetic unit vectors (tests/bench/vectors.py), stamped with the
@@ -94,8 +100,11 @@ def rss_mib(pid: int) -> float:
 
 
 @contextmanager
-def serving(index_dir: Path) -> Iterator[tuple[str, subprocess.Popen]]:
-    """`sounding serve` on a free loopback port, keys off, once its index is loaded."""
+def serving(
+    index_dir: Path, extra_env: dict[str, str] | None = None
+) -> Iterator[tuple[str, subprocess.Popen]]:
+    """`sounding serve` on a free loopback port, keys off, once its index is loaded;
+    ``extra_env`` adds SOUNDING_ settings (the caller's own SOUNDING_ variables are dropped)."""
     port = free_port()
     env = {k: v for k, v in os.environ.items() if not k.startswith("SOUNDING_")}
     server = subprocess.Popen(
@@ -114,9 +123,13 @@ def serving(index_dir: Path) -> Iterator[tuple[str, subprocess.Popen]]:
             "SOUNDING_LOG_LEVEL": "warning",
             "SOUNDING_MAX_K": "100",
             "SOUNDING_REQUIRE_KEYS": "false",
-        },
+        }
+        | (extra_env or {}),
         stdout=subprocess.DEVNULL,
         stderr=subprocess.DEVNULL,
+        # Not the checkout: a variant may import another copy of sounding (PYTHONPATH),
+        # which the checkout's own folder, first on sys.path under -m, would shadow.
+        cwd=index_dir.parent,
     )
     base = f"http://127.0.0.1:{port}"
     try:
@@ -170,36 +183,48 @@ def drive(base: str, mode: str, clients: int, seconds: float) -> tuple[list[floa
     return latencies, errors, time.monotonic() - started
 
 
+def variant_env(variant: str) -> dict[str, str]:
+    """The SOUNDING_ settings of a --variants entry."""
+    if variant == "on":
+        return {}
+    if variant == "off":
+        return {"SOUNDING_QUERY_BATCH": "1"}
+    return dict(item.split("=", 1) for item in variant.split(","))
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--chunks", type=int, nargs="+", default=[10_000, 100_000])
     parser.add_argument("--clients", type=int, default=8)
     parser.add_argument("--seconds", type=float, default=20.0)
     parser.add_argument("--cache", type=Path, help="keep synthetic indexes here")
+    parser.add_argument("--modes", nargs="+", default=["dense", "lexical", "hybrid"])
+    parser.add_argument("--variants", nargs="+", default=["on"], help="off, on or settings")
     args = parser.parse_args()
     scratch = tempfile.TemporaryDirectory()
     root = args.cache or Path(scratch.name)
     print(
-        f"{'chunks':>8} {'mode':<8}{'req/s':>8}{'p50 ms':>8}{'p95 ms':>8}{'p99 ms':>8}"
-        f"{'errors':>8}{'RSS MiB':>9}"
+        f"{'chunks':>8} {'variant':<10}{'mode':<8}{'req/s':>8}{'p50 ms':>8}{'p95 ms':>8}"
+        f"{'p99 ms':>8}{'errors':>8}{'RSS MiB':>9}"
     )
     for n in args.chunks:
         index_dir = root / f"synthetic-{n}"
         build_synthetic(index_dir, n)
-        with serving(index_dir) as (base, server):
-            for mode in ("dense", "lexical", "hybrid"):
-                drive(base, mode, args.clients, 2.0)  # warm
-                lat, errors, wall = drive(base, mode, args.clients, args.seconds)
-                q = (
-                    statistics.quantiles(lat, n=100, method="inclusive")
-                    if len(lat) > 1
-                    else [0.0] * 99
-                )
-                print(
-                    f"{n:>8} {mode:<8}{len(lat) / wall:>8.1f}{q[49]:>8.1f}{q[94]:>8.1f}"
-                    f"{q[98]:>8.1f}{errors:>8}{rss_mib(server.pid):>9.0f}",
-                    flush=True,
-                )
+        for variant in args.variants:
+            with serving(index_dir, variant_env(variant)) as (base, server):
+                for mode in args.modes:
+                    drive(base, mode, args.clients, 2.0)  # warm
+                    lat, errors, wall = drive(base, mode, args.clients, args.seconds)
+                    q = (
+                        statistics.quantiles(lat, n=100, method="inclusive")
+                        if len(lat) > 1
+                        else [0.0] * 99
+                    )
+                    print(
+                        f"{n:>8} {variant[:9]:<10}{mode:<8}{len(lat) / wall:>8.1f}{q[49]:>8.1f}"
+                        f"{q[94]:>8.1f}{q[98]:>8.1f}{errors:>8}{rss_mib(server.pid):>9.0f}",
+                        flush=True,
+                    )
 
 
 if __name__ == "__main__":
