@@ -4,65 +4,45 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
 from pathlib import Path
 
-import numpy as np
-
-from .access import AccessRules, may_read, parse_tags
-from .chunking import Chunk, chunk_document
-from .documents import Document, Skipped
+from .access import AccessRules, may_read
+from .chunking import chunk_document
+from .documents import Document
 from .embedding import Embedder, describe
 from .errors import IndexLockedError, LoadError, SettingsError, SoundingError
-from .loaders import iter_root
 from .lock import IndexLock
+from .pipeline import (
+    GROUP_CHUNKS,
+    Pending,
+    WalkState,
+    collection_name,
+    embed_and_store,
+    labels_of,
+    run_pipeline,
+    threaded,
+    too_many_chunks,
+    walk,
+)
 from .reports import PushReport, RefreshReport
 
-__all__ = ["PushReport", "RefreshReport", "delete_document", "push_document", "refresh_index"]
+__all__ = [
+    "PushReport",
+    "RefreshReport",
+    "collection_name",
+    "delete_document",
+    "labels_of",
+    "push_document",
+    "refresh_index",
+    "too_many_chunks",
+]
 from .settings import IndexSettings
 from .store import SCHEMA_VERSION, IndexWriter, Manifest, write_last_run
 from .vectors import plan_is_current
 from .write_access import check_visible, check_writable
 
-# Documents are embedded and stored in groups of about this many chunks: big
-# enough for full encoder batches, small enough to bound memory; a group's end
-# is a checkpoint where --max-runtime may stop the run.
-_GROUP_CHUNKS = 512
-
-
-def collection_name(root: Path) -> str:
-    """Default collection of a root: its folder name (a file's: its parent's)."""
-    resolved = root.resolve()
-    if resolved.is_file():
-        resolved = resolved.parent
-    return resolved.name or "default"
-
-
-@dataclass
-class _Pending:
-    doc: Document
-    collection: str
-    chunks: list[Chunk]
-    is_new: bool
-    groups: tuple[str, ...] = ()
-    tags: tuple[str, ...] = ()
-
-
-def too_many_chunks(chunks: list[Chunk], settings: IndexSettings) -> str | None:
-    """Why ``chunks`` are too many to embed for one document, or None."""
-    if len(chunks) <= settings.max_document_chunks:
-        return None
-    return (
-        f"cut into {len(chunks)} chunks, over the limit of {settings.max_document_chunks} "
-        "(setting max_document_chunks)"
-    )
-
-
-def labels_of(
-    doc: Document, collection: str, rules: AccessRules
-) -> tuple[tuple[str, ...], tuple[str, ...]]:
-    """(groups that may read ``doc``, its tags); LoadError when its groups are invalid."""
-    return rules.groups_for(collection, doc.id, doc.metadata), parse_tags(doc.metadata.get("tags"))
+# Re-exported: tests/bench/encode.py hands the encoder groups of this size.
+_GROUP_CHUNKS = GROUP_CHUNKS
 
 
 def refresh_index(
@@ -74,6 +54,7 @@ def refresh_index(
     collection: str | None = None,
     progress: Callable[[int, int], None] | None = None,
     max_runtime: float | None = None,
+    pipelined: bool = True,
 ) -> RefreshReport:
     """Bring the index at ``settings.index_dir`` in step with ``roots``.
 
@@ -91,6 +72,10 @@ def refresh_index(
     The outcome (ok, or failed with the reason) is recorded in the index
     folder for monitoring; a run refused because another holds the lock
     changes nothing and records nothing.
+
+    ``pipelined`` (the default) loads and chunks documents in a producer
+    thread while this one embeds and stores (:mod:`.pipeline`); False walks
+    in this thread, the same run step by step (tests compare the two).
     """
     try:
         report = _refresh(
@@ -101,6 +86,7 @@ def refresh_index(
             collection=collection,
             progress=progress,
             max_runtime=max_runtime,
+            pipelined=pipelined,
         )
     except IndexLockedError:
         raise
@@ -127,6 +113,7 @@ def _refresh(
     collection: str | None,
     progress: Callable[[int, int], None] | None,
     max_runtime: float | None,
+    pipelined: bool,
 ) -> RefreshReport:
     started = time.monotonic()
     if not roots:
@@ -150,66 +137,32 @@ def _refresh(
         ) as writer,
     ):
         report.lock_taken_over = lock.took_over is not None
-        known = writer.known()
-        labels = writer.labels()
-        seen: dict[str, str] = {}
-        pending: list[_Pending] = []
-        for root in roots:
-            coll = collection or collection_name(root)
-            for item in iter_root(
-                root, max_file_bytes=settings.max_file_bytes, limits=settings.load_limits
-            ):
-                if isinstance(item, Skipped):
-                    report.skipped.append(item)
-                    continue
-                if item.id in seen:
-                    report.skipped.append(
-                        Skipped(item.id, f"duplicate document id, already taken in {seen[item.id]}")
-                    )
-                    continue
-                try:
-                    groups, tags = labels_of(item, coll, rules)
-                except LoadError as exc:
-                    report.skipped.append(Skipped(item.id, str(exc)))
-                    continue
-                seen[item.id] = str(root)
-                report.warn(item)
-                if known.get(item.id) == (coll, item.content_hash):
-                    if labels.get(item.id) == (groups, tags):
-                        report.unchanged += 1
-                    else:
-                        # Same text, new access rules or tags: no re-embedding needed.
-                        writer.relabel(item.id, groups, tags)
-                        report.updated.append(item.id)
-                    continue
-                chunks = chunk_document(item, embedder.tokenizer, chunking)
-                problem = "no text" if not chunks else too_many_chunks(chunks, settings)
-                if problem:
-                    # Not indexable now: a version stored before is removed with the gone.
-                    report.skipped.append(Skipped(item.id, problem))
-                    seen.pop(item.id)
-                    continue
-                pending.append(_Pending(item, coll, chunks, item.id not in known, groups, tags))
-
-        total = sum(len(p.chunks) for p in pending)
-        done = 0
-        if progress:
-            progress(0, total)
-        group: list[_Pending] = []
-        for i, p in enumerate(pending):
-            if deadline is not None and time.monotonic() > deadline and not group and done:
-                # Checkpoint: every stored document is complete; publish and stop.
-                # (At least one group per run, so even a tiny limit makes progress.)
-                report.stopped_early = True
-                report.pending_left = len(pending) - i
-                break
-            group.append(p)
-            if sum(len(g.chunks) for g in group) >= _GROUP_CHUNKS or i == len(pending) - 1:
-                done += _embed_and_store(writer, embedder, group, report)
-                if progress:
-                    progress(done, total)
-                group = []
-
+        known, state = writer.known(), WalkState()
+        steps = walk(
+            roots,
+            settings,
+            collection,
+            rules,
+            known,
+            writer.labels(),
+            embedder.tokenizer,
+            chunking,
+            report,
+            state,
+        )
+        # Start loading the encoder (torch, weights: seconds) as soon as something must be
+        # embedded, while the walk goes on; only the real encoder has a preload.
+        preload = getattr(embedder, "preload", None)
+        run_pipeline(
+            threaded(steps) if pipelined else steps,
+            writer,
+            embedder,
+            report,
+            deadline=deadline,
+            progress=progress,
+            on_first_pending=preload if callable(preload) else None,
+        )
+        seen = state.seen
         collections = {collection or collection_name(r) for r in roots}
         gone = [i for i, (coll, _) in known.items() if coll in collections and i not in seen]
         writer.remove(gone)
@@ -238,31 +191,6 @@ def _current(previous: Manifest, settings: IndexSettings, writer: IndexWriter) -
             previous.vectors, previous.chunks, writer.dimension, settings.vector_choice
         )
     )
-
-
-def _embed_and_store(
-    writer: IndexWriter, embedder: Embedder, group: list[_Pending], report: RefreshReport
-) -> int:
-    """Embed the chunks of ``group`` that have no stored vector, then store each document."""
-    reuse: list[dict[str, np.ndarray]] = [
-        {} if p.is_new else writer.stored_vectors(p.doc.id) for p in group
-    ]
-    texts: list[str] = []
-    for p, old in zip(group, reuse, strict=True):
-        texts += [c.embed_text for c in p.chunks if c.embed_hash not in old]
-    fresh = iter(embedder.encode(texts)) if texts else iter(())
-    for p, old in zip(group, reuse, strict=True):
-        vectors = np.empty((len(p.chunks), embedder.dimension), dtype=np.float32)
-        for j, c in enumerate(p.chunks):
-            if c.embed_hash in old:
-                vectors[j] = old[c.embed_hash]
-                report.chunks_reused += 1
-            else:
-                vectors[j] = next(fresh)
-                report.chunks_embedded += 1
-        writer.put(p.doc, p.collection, p.chunks, vectors, groups=p.groups, tags=p.tags)
-        (report.added if p.is_new else report.updated).append(p.doc.id)
-    return sum(len(p.chunks) for p in group)
 
 
 def _locked(index_dir: Path, wait_seconds: float) -> IndexLock:
@@ -335,8 +263,8 @@ def push_document(
             manifest = writer.publish()
             return PushReport(doc.id, "updated", len(chunks), 0, manifest.generation)
         report = RefreshReport()
-        pending = _Pending(doc, collection, chunks, known is None, groups, tags)
-        _embed_and_store(writer, embedder, [pending], report)
+        pending = Pending(doc, collection, chunks, known is None, groups, tags)
+        embed_and_store(writer, embedder, [pending], report)
         manifest = writer.publish()
     # No last-run record: it reports folder runs, and a push must not hide a failed one.
     return PushReport(

@@ -14,6 +14,7 @@ import json
 import logging
 import os
 import re
+import threading
 from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Literal, Protocol
@@ -21,7 +22,12 @@ from typing import TYPE_CHECKING, Literal, Protocol
 import numpy as np
 
 from .chunking import Tokenizer
+from .cpu import BF16_FLAGS as BF16_FLAGS
+from .cpu import cpu_flags as cpu_flags
+from .cpu import usable_cores as usable_cores
 from .errors import ModelError, SettingsError
+from .hashing import HashingEmbedder as HashingEmbedder
+from .hashing import WhitespaceTokenizer as WhitespaceTokenizer
 
 if TYPE_CHECKING:  # imported for real only when the model loads (torch is slow to import)
     from sentence_transformers import SentenceTransformer
@@ -30,10 +36,6 @@ log = logging.getLogger(__name__)
 
 Precision = Literal["auto", "fp32", "bf16"]
 PRECISIONS: tuple[str, ...] = ("auto", "fp32", "bf16")
-# CPU flags (Linux /proc/cpuinfo names) of native bf16 arithmetic: AVX512-BF16 dot products
-# and AMX tiles (Intel Architecture Instruction Set Extensions Programming Reference).
-# Without them torch still runs bf16, but emulated, slower than fp32.
-BF16_FLAGS: frozenset[str] = frozenset({"avx512_bf16", "amx_bf16"})
 
 
 class Embedder(Protocol):
@@ -90,6 +92,30 @@ def model_identity(path: Path) -> tuple[str, str]:
     return name, digest.hexdigest()[:16]
 
 
+class _RustTokenizer:
+    """Word-piece spans from the model's ``tokenizer.json``, without loading the model.
+
+    The same Rust tokenizer the model's Hugging Face tokenizer wraps, with
+    truncation and padding off as that one calls it for chunking (identical
+    spans: tests/unit/test_pipeline.py). Chunking then needs neither torch nor
+    the weights, and it owns this instance: Hugging Face's tokenizer changes
+    its truncation state per call, so sharing it with the encoder's thread
+    raises "Already borrowed".
+    """
+
+    def __init__(self, path: Path) -> None:
+        from tokenizers import Tokenizer as Rust
+
+        self._tok = Rust.from_file(str(path))
+        self._tok.no_truncation()
+        self._tok.no_padding()
+
+    def spans(self, text: str) -> list[tuple[int, int]]:
+        return [
+            (int(s), int(e)) for s, e in self._tok.encode(text, add_special_tokens=False).offsets
+        ]
+
+
 class _HFTokenizer:
     """Word-piece spans from a Hugging Face fast tokenizer."""
 
@@ -137,20 +163,6 @@ def peek_model(path: Path) -> tuple[int, int] | None:
         return None
 
 
-def cpu_flags(cpuinfo: str | None = None) -> frozenset[str]:
-    """Feature flags of the CPU from ``/proc/cpuinfo`` (or the text given); empty elsewhere."""
-    if cpuinfo is None:
-        try:
-            cpuinfo = Path("/proc/cpuinfo").read_text("utf-8", "replace")
-        except OSError:  # not Linux: no flags, so auto stays on fp32
-            return frozenset()
-    for line in cpuinfo.splitlines():
-        key, _, value = line.partition(":")
-        if key.strip() in ("flags", "Features"):  # x86, arm64
-            return frozenset(value.split())
-    return frozenset()
-
-
 def choose_precision(requested: str, flags: frozenset[str]) -> Literal["fp32", "bf16"]:
     """The precision to run: ``auto`` is bf16 when the CPU has native bf16, else fp32."""
     if requested not in PRECISIONS:
@@ -167,14 +179,6 @@ def choose_precision(requested: str, flags: frozenset[str]) -> Literal["fp32", "
             ", ".join(sorted(BF16_FLAGS)),
         )
     return requested  # type: ignore[return-value]
-
-
-def usable_cores() -> int:
-    """Cores this process may run on (its affinity mask, which containers and taskset narrow)."""
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except AttributeError:  # pragma: no cover - not Linux
-        return max(1, os.cpu_count() or 1)
 
 
 def encode_longest_first(
@@ -243,6 +247,7 @@ class SentenceTransformerEmbedder:
         self.precision: Literal["fp32", "bf16"] = choose_precision(precision, cpu_flags())
         self.threads = threads or usable_cores()
         self._model: SentenceTransformer | None = None
+        self._loading = threading.Lock()  # one load, whichever thread asks first
         self._tokenizer: Tokenizer | None = None
         self._peeked = peek_model(path)
 
@@ -250,26 +255,50 @@ class SentenceTransformerEmbedder:
     def model(self) -> SentenceTransformer:
         """The loaded sentence-transformers model (loaded on first access)."""
         if self._model is None:
-            try:
-                quiet_offline()
-                import torch
-                from sentence_transformers import SentenceTransformer
-
-                torch.set_num_threads(self.threads)
-                model = SentenceTransformer(str(self.path), device="cpu")
-                if (
-                    self.precision == "bf16"
-                    and self.requested_precision == "auto"
-                    and not (torch.ops.mkldnn._is_mkldnn_bf16_supported())
-                ):
-                    log.debug("precision auto: fp32, this torch build has no oneDNN bf16")
-                    self.precision = "fp32"
-                if self.precision == "bf16":
-                    model = model.to(torch.bfloat16)
-                self._model = model
-            except Exception as exc:
-                raise ModelError(f"cannot load the encoder from {self.path}: {exc}") from exc
+            with self._loading:
+                if self._model is None:
+                    self._model = self._load()
         return self._model
+
+    def preload(self) -> None:
+        """Start loading the model in a background thread (a no-op once loaded).
+
+        A run calls it when it first finds something to embed, so torch's
+        import and the weights load while it goes on loading and chunking;
+        a failure there is raised again by the first use of :attr:`model`.
+        """
+        if self._model is not None:
+            return
+
+        def load() -> None:
+            try:
+                self.model  # noqa: B018 - loads under the lock
+            except ModelError:
+                log.debug("preload of %s failed; the first encode raises it", self.path)
+
+        threading.Thread(target=load, name="sounding-model-load", daemon=True).start()
+
+    def _load(self) -> SentenceTransformer:
+        """Import torch and load the weights (seconds), in the precision chosen."""
+        try:
+            quiet_offline()
+            import torch
+            from sentence_transformers import SentenceTransformer
+
+            torch.set_num_threads(self.threads)
+            model = SentenceTransformer(str(self.path), device="cpu")
+            if (
+                self.precision == "bf16"
+                and self.requested_precision == "auto"
+                and not (torch.ops.mkldnn._is_mkldnn_bf16_supported())
+            ):
+                log.debug("precision auto: fp32, this torch build has no oneDNN bf16")
+                self.precision = "fp32"
+            if self.precision == "bf16":
+                model = model.to(torch.bfloat16)
+            return model
+        except Exception as exc:
+            raise ModelError(f"cannot load the encoder from {self.path}: {exc}") from exc
 
     @property
     def dimension(self) -> int:
@@ -292,7 +321,10 @@ class SentenceTransformerEmbedder:
     @property
     def tokenizer(self) -> Tokenizer:
         if self._tokenizer is None:
-            self._tokenizer = _HFTokenizer(self.model.tokenizer)
+            file = self.path / "tokenizer.json"
+            self._tokenizer = (
+                _RustTokenizer(file) if file.is_file() else _HFTokenizer(self.model.tokenizer)
+            )
         return self._tokenizer
 
     def _encode_batch(self, texts: list[str]) -> np.ndarray:
@@ -340,52 +372,6 @@ class SentenceTransformerEmbedder:
             texts, self.token_lengths(texts), self.batch_size, self._encode_batch
         )
         return np.ascontiguousarray(vectors, dtype=np.float32)
-
-
-class WhitespaceTokenizer:
-    """One token per run of letters/digits or per other non-space character."""
-
-    _pattern = re.compile(r"\w+|[^\w\s]", re.UNICODE)
-
-    def spans(self, text: str) -> list[tuple[int, int]]:
-        return [m.span() for m in self._pattern.finditer(text)]
-
-
-class HashingEmbedder:
-    """A seeded, model-free encoder for tests of plumbing.
-
-    Each word maps to a fixed random vector (seeded by its hash); a text is
-    the normalised sum of its words' vectors. Texts sharing words are
-    therefore similar, which is enough to test ranking plumbing end to end.
-    """
-
-    def __init__(self, dimension: int = 32, *, seed: int = 0, max_tokens: int = 256) -> None:
-        self.name = f"hashing-{dimension}"
-        self.fingerprint = f"hashing-{dimension}-{seed}"
-        self.dimension = dimension
-        self.max_tokens = max_tokens
-        self.tokenizer: Tokenizer = WhitespaceTokenizer()
-        self._seed = seed
-        self.calls = 0
-        self.texts_encoded = 0
-
-    def _word(self, word: str) -> np.ndarray:
-        # Big-endian, as Python 3.11+ defaults to (3.10 requires the argument).
-        digest = hashlib.blake2b(f"{self._seed}:{word}".encode(), digest_size=8).digest()
-        h = int.from_bytes(digest, "big")
-        return np.random.default_rng(h).standard_normal(self.dimension).astype(np.float32)
-
-    def encode(self, texts: Sequence[str]) -> np.ndarray:
-        self.calls += 1
-        self.texts_encoded += len(texts)
-        out = np.zeros((len(texts), self.dimension), dtype=np.float32)
-        for i, text in enumerate(texts):
-            for word in re.findall(r"\w+", text.lower()):
-                out[i] += self._word(word)
-            if not out[i].any():
-                out[i, 0] = 1.0
-        out /= np.linalg.norm(out, axis=1, keepdims=True)
-        return np.ascontiguousarray(out, dtype=np.float32)
 
 
 def describe(embedder: Embedder) -> dict[str, object]:

@@ -86,6 +86,9 @@ def progress_bar(desc: str = "embedding", unit: str = "chunk") -> Callable[[int,
         if "bar" not in bar:
             bar["bar"] = tqdm(total=total, unit=unit, desc=desc, file=sys.stderr)
         b = bar["bar"]
+        if total != b.total:  # a pipelined run learns its total as its walk goes on
+            b.total = total
+            b.refresh()
         b.update(done - b.n)
         if done >= total:
             b.close()
