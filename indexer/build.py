@@ -145,7 +145,7 @@ def _refresh(
             rules,
             known,
             writer.labels(),
-            embedder.tokenizer,
+            lambda: embedder.tokenizer,
             chunking,
             report,
             state,

@@ -104,7 +104,7 @@ def walk(
     rules: AccessRules,
     known: dict[str, tuple[str, str]],
     labels: dict[str, tuple[tuple[str, ...], tuple[str, ...]]],
-    tokenizer: Tokenizer,
+    tokenizer: Callable[[], Tokenizer],
     chunking: ChunkSettings,
     report: RefreshReport,
     state: WalkState,
@@ -113,6 +113,9 @@ def walk(
 
     Touches no database: it reads ``known`` and ``labels`` and records skipped
     files and warnings in ``report`` (whose other fields only the consumer sets).
+    ``tokenizer()`` is asked for only when a document must be chunked: a run
+    that finds nothing changed loads no tokenizer (nor, for a model folder
+    without tokenizer.json, the model).
     """
     for root in roots:
         coll = collection or collection_name(root)
@@ -143,7 +146,7 @@ def walk(
                     else Relabel(item.id, groups, tags)
                 )
                 continue
-            chunks = chunk_document(item, tokenizer, chunking)
+            chunks = chunk_document(item, tokenizer(), chunking)
             problem = "no text" if not chunks else too_many_chunks(chunks, settings)
             if problem:
                 # Not indexable now: a version stored before is removed with the gone.

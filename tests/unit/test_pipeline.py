@@ -153,3 +153,22 @@ def test_chunking_tokenizer_matches_the_models() -> None:
         out = hf(text, add_special_tokens=False, return_offsets_mapping=True, verbose=False)
         assert embedder.tokenizer.spans(text) == [tuple(s) for s in out["offset_mapping"]]
     assert embedder._model is None  # chunking loaded neither torch's model nor the weights
+
+
+def test_unchanged_run_asks_for_no_tokenizer(tmp_path: Path) -> None:
+    """Nothing to chunk, no tokenizer: for the real encoder that is tokenizers' import (or,
+    without tokenizer.json, torch and the weights)."""
+
+    class NoTokenizer(HashingEmbedder):
+        @property  # type: ignore[override]
+        def tokenizer(self):  # type: ignore[no-untyped-def]
+            raise AssertionError("an unchanged run asked for the tokenizer")
+
+        @tokenizer.setter
+        def tokenizer(self, value) -> None:  # type: ignore[no-untyped-def]
+            pass
+
+    wiki = small_wiki(tmp_path / "wiki", 5)
+    settings = IndexSettings(index_dir=tmp_path / "idx", chunk_tokens=64)
+    refresh_index([wiki], settings, HashingEmbedder(16))
+    assert refresh_index([wiki], settings, NoTokenizer(16)).unchanged == 5
