@@ -16,6 +16,16 @@ The rules, applied to the hits best first:
   separate passages, each cited under its own headings.
 - At most ``max_per_document`` passages per document; joining a passage does
   not start a new one, so it is never blocked by the cap.
+- Section continuation: right after a hit is taken, the windows that follow
+  it in its document (``following[hit.chunk_id]``, consecutive ordinals) are
+  tried next, while they continue it (:func:`continues`): the rest of its
+  section, its subsections, and the following numbered sibling steps (the
+  rest of a procedure of "Step n" headings). They
+  are not capped by ``max_per_document``. An answer cut after its first
+  window misleads a bot more than a missing second document does. The first
+  follower that does not fit ends the continuation.
+- Passages of one document come in document order (by ordinal); documents in
+  the order of their best passage.
 - A hit that does not fit in what is left of the budget is skipped, and
   shorter hits below it may still fit.
 - When the best hit alone does not fit, its text is cut at a word boundary
@@ -28,7 +38,7 @@ The rules, applied to the hits best first:
 from __future__ import annotations
 
 import re
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, replace
 from typing import Protocol
 
@@ -220,7 +230,7 @@ def _join(a: _Draft, b: _Draft) -> _Draft:
     )
 
 
-def _with_hit(drafts: list[_Draft], hit: RankedChunk, cap: int) -> list[_Draft] | None:
+def _with_hit(drafts: list[_Draft], hit: RankedChunk, cap: float) -> list[_Draft] | None:
     """``drafts`` with ``hit`` joined or appended; None when the cap forbids it."""
     new = _draft(hit)
     before = next(
@@ -250,7 +260,43 @@ def _with_hit(drafts: list[_Draft], hit: RankedChunk, cap: int) -> list[_Draft] 
     return out
 
 
+# A heading that names a step of a procedure: "Step 3: ...". Numbered chapters and clauses
+# ("5. Email", "8.1 What to report", "1. Outstations") are siblings, not the rest of a
+# procedure: continuing into them lost answers on the demo questions (tests/bench/grounding.py).
+_NUMBERED = re.compile(r"^\s*step\s+\d+\b", re.IGNORECASE)
+
+
+def continues(hit_trail: Sequence[str], trail: Sequence[str]) -> bool:
+    """Whether a following window with heading ``trail`` continues a hit under ``hit_trail``.
+
+    The rest of the hit's section and its subsections continue it; so does a
+    sibling subsection when both headings name steps ("Step 4" after "Step 3"):
+    the rest of a numbered procedure. Other siblings (the next question of a
+    FAQ, the next policy clause) do not: measured on the demo questions,
+    continuing into them spent the budget on text that did not answer.
+    """
+    own = tuple(hit_trail)
+    if tuple(trail[: len(own)]) == own:
+        return True
+    return (
+        len(own) >= 1
+        and len(trail) >= len(own)
+        and tuple(trail[: len(own) - 1]) == own[:-1]
+        and bool(_NUMBERED.match(own[-1]))
+        and bool(_NUMBERED.match(trail[len(own) - 1]))
+    )
+
+
+def _in_document_order(drafts: Sequence[_Draft]) -> list[_Draft]:
+    """Documents in the order of their first passage, each one's passages by ordinal."""
+    rank = {d.key[0]: -1 for d in drafts}
+    for i, d in enumerate(drafts):
+        rank[d.key[0]] = i if rank[d.key[0]] < 0 else rank[d.key[0]]
+    return sorted(drafts, key=lambda d: (rank[d.key[0]], d.first))
+
+
 def _passages(drafts: Sequence[_Draft]) -> tuple[ContextPassage, ...]:
+    drafts = _in_document_order(drafts)
     return tuple(
         ContextPassage(
             number=n,
@@ -289,8 +335,12 @@ def select_context(
     *,
     max_per_document: int = 2,
     min_words: int = MIN_WORDS,
+    following: Mapping[int, Sequence[RankedChunk]] | None = None,
 ) -> Context:
     """The best passages of ``hits`` (best first) whose rendered block fits ``budget``.
+
+    ``following`` maps a hit's chunk id to the windows after it in its document,
+    in order (section continuation; the caller fetches them for its top hits).
 
     See the module docstring for the rules. ``count(result.text) <= budget``
     always holds: the final block is counted whole, and should ``count`` not
@@ -305,14 +355,14 @@ def select_context(
     part_counts: list[int] = []
     history: list[list[_Draft]] = [[]]
     seen: set[int] = set()
-    for hit in hits:
-        if hit.chunk_id in seen or not hit.text.strip():
-            continue
-        best = not seen
-        seen.add(hit.chunk_id)
-        trial = _with_hit(drafts, hit, max_per_document)
+    following = following or {}
+
+    def take(hit: RankedChunk, cap: float) -> bool:
+        """Add ``hit`` when the cap allows it and the parts fit; whether it was added."""
+        nonlocal drafts, part_counts
+        trial = _with_hit(drafts, hit, cap)
         if trial is None:
-            continue
+            return False
         # Count only the parts that changed; the sum is checked whole at the end.
         counts = [
             part_counts[i]
@@ -320,9 +370,34 @@ def select_context(
             else count(render_passage(i + 1, d.text, d.citation))
             for i, d in enumerate(trial)
         ]
-        if sum(counts) + sep * (len(counts) - 1) <= budget:
-            drafts, part_counts = trial, counts
-            history.append(drafts)
+        if sum(counts) + sep * (len(counts) - 1) > budget:
+            return False
+        drafts, part_counts = trial, counts
+        history.append(drafts)
+        return True
+
+    for hit in hits:
+        if hit.chunk_id in seen or not hit.text.strip():
+            continue
+        best = not seen
+        seen.add(hit.chunk_id)
+        if take(hit, max_per_document):
+            last = hit.ordinal
+            for after in following.get(hit.chunk_id, ()):
+                if (
+                    after.document_id != hit.document_id
+                    or after.ordinal != last + 1
+                    or not continues(hit.trail, after.trail)
+                ):
+                    break
+                last = after.ordinal
+                if any(after.chunk_id in d.chunk_ids for d in drafts):
+                    continue  # taken already as a hit of its own
+                if not after.text.strip() or not take(after, float("inf")):
+                    break
+                seen.add(after.chunk_id)
+        elif _with_hit(drafts, hit, max_per_document) is None:
+            continue
         elif best:
             cut = _truncated(hit, budget, count, min_words)
             if cut is not None:

@@ -348,6 +348,21 @@ class IndexReader:
                 out[hit.chunk_id] = hit
         return out
 
+    def ordinal_rows(
+        self, document_id: str, first: int, last: int, where: SearchFilter | None = None
+    ) -> list[HitRow]:
+        """A document's chunks with ordinals ``first``..``last`` in order, as hit rows (the
+        windows that follow a ranked passage, for grounding); empty when ``where`` does
+        not admit the document."""
+        cond, params = where.sql() if where is not None else ("1", [])
+        rows = self._rows(
+            f"SELECT {HIT_COLUMNS} FROM chunks c JOIN documents d ON d.id = c.document_id "
+            f"WHERE c.document_id = ? AND c.ordinal BETWEEN ? AND ? AND {cond} "
+            "ORDER BY c.ordinal",
+            [document_id, first, last, *params],
+        )
+        return [hit_row(r) for r in rows]
+
     def document(
         self, document_id: str, where: SearchFilter | None = None
     ) -> DocumentRecord | None:

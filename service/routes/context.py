@@ -3,9 +3,13 @@
 from __future__ import annotations
 
 import time
+from collections.abc import Sequence
 
 from fastapi import APIRouter, HTTPException, Request
-from sounding.indexer.grounding import select_context, token_counter
+from sounding.indexer.grounding import Context, Counter, select_context, token_counter
+from sounding.indexer.search import Hit, Query, Searcher
+from sounding.indexer.selection import SearchFilter
+from sounding.indexer.store import IndexReader
 
 from ..auth import ReadCaller
 from ..deps import GenerationDep, SettingsDep
@@ -23,6 +27,49 @@ MIN_POOL, MAX_POOL = 32, 100
 CHARS_PER_TOKEN = 4
 # Hits of one document in the pool, at least.
 PER_DOCUMENT_POOL = 8
+
+
+# Section continuation: the following windows of the best hits are candidates right after
+# them (see indexer/grounding.py). Three hits, eight windows each: a procedure of several
+# steps fits, and a few small reads per request stay cheap beside the encoder.
+CONTINUE_TOP, CONTINUE_SPAN = 3, 8
+
+
+def following_windows(
+    reader: IndexReader,
+    hits: Sequence[Hit],
+    where: SearchFilter | None,
+    top: int = CONTINUE_TOP,
+    span: int = CONTINUE_SPAN,
+) -> dict[int, list[Hit]]:
+    """For each of the ``top`` best hits, the next ``span`` windows of its document, in
+    order, scored as the hit (the same filter applies: it is the same document)."""
+    return {
+        hit.chunk_id: [
+            Hit.of(row, hit.rank, hit.score)
+            for row in reader.ordinal_rows(
+                hit.document_id, hit.ordinal + 1, hit.ordinal + span, where
+            )
+        ]
+        for hit in hits[:top]
+    }
+
+
+def ground(
+    searcher: Searcher,
+    query: Query,
+    budget: int,
+    count: Counter,
+    max_per_document: int,
+    *,
+    continuation: bool = True,
+) -> Context:
+    """The context block of a checked ``query`` (what the route returns; benches call it)."""
+    hits = searcher.run(query)
+    following = following_windows(searcher.reader, hits, query.where) if continuation else None
+    return select_context(
+        hits, budget, count, max_per_document=max_per_document, following=following
+    )
 
 
 def candidate_pool(budget: int, unit: str) -> int:
@@ -69,9 +116,8 @@ def context(
             422,
             f"budget={body.budget} {body.unit} is over the limit of {limit} (setting {setting})",
         )
-    hits = searcher.run(query)
     count = token_counter(searcher.embedder.tokenizer) if body.unit == "tokens" else len
-    chosen = select_context(hits, body.budget, count, max_per_document=body.max_per_document)
+    chosen = ground(searcher, query, body.budget, count, body.max_per_document)
     return ContextResponse(
         query=body.query,
         budget=body.budget,

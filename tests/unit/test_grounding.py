@@ -16,6 +16,7 @@ from sounding.indexer.grounding import (
     SEPARATOR,
     TRUNCATION_MARK,
     Citation,
+    continues,
     join_overlapping,
     overlap_length,
     select_context,
@@ -405,3 +406,73 @@ def test_whitespace_tokens_counter_never_exceeds(hits, budget) -> None:
 def test_real_tokenizer_budget_never_exceeded(real_embedder, hits, budget) -> None:
     count = token_counter(real_embedder.tokenizer)
     check_context(select_context(hits, budget, count), hits, budget, count, 2)
+
+
+# -- section continuation ---------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("hit_trail", "trail", "expected"),
+    [
+        (("Restore",), ("Restore",), True),  # the rest of its section
+        (("Restore",), ("Restore", "Checks"), True),  # its subsection
+        (("Restore", "Step 3: fetch"), ("Restore", "Step 4: configure"), True),  # next step
+        (("Restore", "Step 3"), ("Restore", "Step 4", "Notes"), True),
+        (("Restore", "Step 7"), ("Rebuilding the replica",), False),  # the procedure ended
+        (("Accounts", "Locked out?"), ("Accounts", "New phone?"), False),  # next FAQ entry
+        (("8. Incidents", "8.1 What"), ("8. Incidents", "8.2 How"), False),  # policy clauses
+        (("5. Email",), ("6. Suppliers",), False),  # chapters
+        ((), ("Anything",), True),  # a document without headings is one section
+    ],
+)
+def test_what_continues_a_hit(hit_trail, trail, expected: bool) -> None:
+    assert continues(hit_trail, trail) is expected
+
+
+def _procedure() -> list[Hit]:
+    return [
+        hit(10 + i, "runbook.md", i, words(6, f"s{i}"), trail=("Restore", f"Step {i}: do"))
+        for i in range(1, 6)
+    ]
+
+
+def test_the_steps_after_a_high_hit_come_before_other_documents() -> None:
+    steps = _procedure()
+    other = hit(99, "other.md", 0, words(6, "o"))
+    ctx = select_context(
+        [steps[1], other], 10_000, pieces, max_per_document=1, following={12: steps[2:]}
+    )
+    # Steps 3..5 follow step 2, uncapped by max_per_document, before the other document.
+    assert [p.chunk_ids for p in ctx.passages] == [(12,), (13,), (14,), (15,), (99,)]
+
+
+def test_continuation_stops_at_the_first_window_that_does_not_fit() -> None:
+    steps = _procedure()
+    whole = select_context([steps[1]], 10_000, pieces, following={12: steps[2:]})
+    two = pieces(SEPARATOR.join(p.render() for p in whole.passages[:2]))
+    ctx = select_context([steps[1]], two + 1, pieces, following={12: steps[2:]})
+    assert [p.chunk_ids for p in ctx.passages] == [(12,), (13,)]
+    assert pieces(ctx.text) <= ctx.budget
+
+
+def test_passages_of_one_document_come_in_document_order() -> None:
+    a2, b0, a0 = (
+        hit(3, "a.md", 5, words(5, "x")),
+        hit(7, "b.md", 0, words(5, "y")),
+        hit(1, "a.md", 1, words(5, "z"), trail=("Other",)),
+    )
+    ctx = select_context([a2, b0, a0], 10_000, pieces, max_per_document=2)
+    assert [p.chunk_ids for p in ctx.passages] == [(1,), (3,), (7,)]
+    assert [p.number for p in ctx.passages] == [1, 2, 3]
+
+
+@given(st.integers(20, 400), st.integers(1, 3))
+@settings(max_examples=40, deadline=None)
+def test_with_continuation_the_block_still_fits(budget: int, cap: int) -> None:
+    steps = _procedure()
+    hits = [steps[2], hit(50, "x.md", 0, words(9, "q")), steps[0]]
+    following = {13: steps[3:], 11: steps[1:]}
+    ctx = select_context(hits, budget, pieces, max_per_document=cap, following=following)
+    assert pieces(ctx.text) == ctx.used <= budget
+    seen = [c for p in ctx.passages for c in p.chunk_ids]
+    assert len(seen) == len(set(seen))
