@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import sqlite3
 from pathlib import Path
 
@@ -169,3 +170,69 @@ def test_the_cli_through_the_server_prints_what_it_prints_in_process(
         mine, theirs = json.loads(local.stdout), json.loads(remote.stdout)
         assert [h["chunk_id"] for h in theirs] == [h["chunk_id"] for h in mine]
         assert [h["score"] for h in theirs] == pytest.approx([h["score"] for h in mine], abs=1e-5)
+
+
+# -- first result and grounding floors (figures from tests/bench/quality.py --demo and
+# tests/bench/grounding.py, 2026-12-03, minus a margin of about two questions) ----------
+
+# (question set, mode) -> (top-1 share, MRR@10) measured.
+RANK_MEASURED = {
+    ("old", "dense"): (0.871, 0.935),
+    ("new", "dense"): (0.885, 0.936),
+    ("old", "lexical"): (0.452, 0.522),
+    ("new", "lexical"): (0.731, 0.831),
+    ("old", "hybrid"): (0.774, 0.882),
+    ("new", "hybrid"): (0.885, 0.936),
+}
+RANK_MARGIN = 0.07
+# Share of questions whose answer phrase is in the /context block at 400 tokens.
+GROUNDING_MEASURED_400 = {"old": 0.742, "new": 1.000}
+GROUNDING_MARGIN = 0.07
+
+
+def _normalized(text: str) -> str:
+    return " ".join(text.replace("*", "").replace("`", "").lower().split())
+
+
+@pytest.mark.parametrize(("group", "mode"), sorted(RANK_MEASURED))
+def test_first_result_floors(base: str, group: str, mode: str) -> None:
+    ranks = []
+    for q in [q for q in QUESTIONS if q.get("set", "old") == group]:
+        r = httpx.post(
+            f"{base}/search",
+            json={"query": q["question"], "k": 10, "max_per_document": 1, "mode": mode},
+        ).json()
+        docs = [p["document_id"] for p in r["results"]]
+        ranks.append(next((i for i, d in enumerate(docs, 1) if d in q["expected"]), 0))
+    top1 = sum(r == 1 for r in ranks) / len(ranks)
+    mrr = sum(1 / r for r in ranks if r) / len(ranks)
+    print(f"{group} {mode}: top-1 {top1:.3f} MRR@10 {mrr:.3f}")
+    want_top1, want_mrr = RANK_MEASURED[group, mode]
+    assert top1 >= want_top1 - RANK_MARGIN and mrr >= want_mrr - RANK_MARGIN
+
+
+@pytest.mark.parametrize("group", sorted(GROUNDING_MEASURED_400))
+def test_context_holds_the_answer_at_400_tokens(base: str, group: str) -> None:
+    judged = [q for q in QUESTIONS if q.get("set", "old") == group and q.get("answer")]
+    found = 0
+    for q in judged:
+        r = httpx.post(f"{base}/context", json={"query": q["question"], "budget": 400}).json()
+        found += _normalized(q["answer"]) in _normalized(r["text"])
+    share = found / len(judged)
+    print(f"{group}: answer phrase within 400 tokens {share:.3f}")
+    assert share >= GROUNDING_MEASURED_400[group] - GROUNDING_MARGIN
+
+
+def test_the_restore_context_at_400_holds_its_steps_in_order(base: str) -> None:
+    r = httpx.post(
+        f"{base}/context",
+        json={"query": "How do I restore the telemetry database from a backup?", "budget": 400},
+    ).json()
+    steps = [
+        int(m)
+        for p in r["passages"]
+        if p["document_id"] == "runbooks/restore-telemetry-db.md"
+        for m in re.findall(r"Step (\d+):", " ".join(p["trail"]))
+    ]
+    assert len(steps) >= 2 and steps == sorted(steps)
+    assert [s - steps[0] for s in steps] == list(range(len(steps)))  # consecutive
