@@ -6,7 +6,7 @@ so ranking, access and citations have one implementation:
 - ``search``: ranked passages (``Searcher.query``/``run``, as ``POST /search``),
   each with the citation line ``/context`` writes;
 - ``context``: the numbered, cited block that fits a token budget
-  (``select_context``, as ``POST /context``);
+  (``routes.context.ground``, as ``POST /context``: continuation of a procedure included);
 - ``get_document``: one document's text (``IndexReader.document`` with the
   caller's filter, as ``GET /documents/{id}``; hidden and unknown ids get the
   same answer).
@@ -40,7 +40,6 @@ from sounding.indexer.grounding import (
     TRUNCATION_MARK,
     Citation,
     render_passage,
-    select_context,
     token_counter,
 )
 
@@ -59,7 +58,7 @@ from .mcp_schemas import (
     SearchResult,
     tool_list,
 )
-from .routes.context import PER_DOCUMENT_POOL, candidate_pool
+from .routes.context import PER_DOCUMENT_POOL, candidate_pool, ground
 from .schemas import ContextPassageOut, DocumentResponse
 from .settings import ServiceSettings
 from .views import document_view, passages
@@ -176,12 +175,13 @@ def _context(asker: Asker, generation: Generation, args: ContextArgs) -> types.C
         )
     if args.budget < 1:
         raise QueryError(f"budget={args.budget} must be 1 or more")
-    hits = searcher.run(query)
-    chosen = select_context(
-        hits,
+    # The route's own grounding: same hits, same continuation of a procedure, same budget rule.
+    chosen = ground(
+        searcher,
+        query,
         args.budget,
         token_counter(searcher.embedder.tokenizer),
-        max_per_document=args.max_per_document,
+        args.max_per_document,
     )
     chosen_passages = [
         ContextPassageOut(
