@@ -302,6 +302,7 @@ def run(*args: str, env: dict[str, str] | None = None, command: list[str] | None
     )
 
 
+@pytest.mark.slow  # seconds each: the fast loop stays under a minute
 @pytest.mark.subprocess
 def test_console_script_and_module_agree_on_exit_codes(tmp_path: Path) -> None:
     script = shutil.which("sounding", path=str(Path(sys.executable).parent))

@@ -10,6 +10,7 @@ from pathlib import Path
 
 import httpx
 import numpy as np
+import pytest
 from fastapi import FastAPI
 from sounding.indexer.batching import QueryBatcher
 from sounding.indexer.embedding import HashingEmbedder
@@ -31,6 +32,7 @@ class Slow(HashingEmbedder):
         return super().encode(texts)
 
 
+@pytest.mark.slow  # seconds each: the fast loop stays under a minute
 def test_concurrent_distinct_queries_each_get_their_own_answers(tmp_path: Path) -> None:
     apps: list[FastAPI] = []
     with served_index(

@@ -135,6 +135,7 @@ def test_window_bounds(starts, budget, overlap, expected) -> None:
     budget=st.integers(1, 80),
     overlap=st.integers(0, 40),
 )
+@pytest.mark.slow  # seconds each: the fast loop stays under a minute
 @settings(max_examples=300, deadline=None)
 def test_window_bounds_cover_progress_and_respect_budget(
     n_starts: tuple[int, list[bool]], budget: int, overlap: int

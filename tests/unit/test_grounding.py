@@ -165,6 +165,7 @@ def _demo_documents() -> list[Document]:
     return [d for d in iter_root(DEMO) if isinstance(d, Document)]
 
 
+@pytest.mark.slow  # seconds each: the fast loop stays under a minute
 @pytest.mark.parametrize(
     "chunk_settings", [ChunkSettings(), ChunkSettings(64, 16), ChunkSettings(48, 24)]
 )
@@ -383,6 +384,7 @@ def check_context(ctx, hits, budget, count, max_per_document) -> None:
     counter=st.sampled_from([len, pieces, superadditive]),
     cap=st.integers(1, 3),
 )
+@pytest.mark.slow  # seconds each: the fast loop stays under a minute
 @settings(max_examples=400, deadline=None)
 def test_block_never_exceeds_the_budget_and_every_passage_is_cited(
     hits, budget, counter, cap
@@ -391,6 +393,7 @@ def test_block_never_exceeds_the_budget_and_every_passage_is_cited(
     check_context(ctx, hits, budget, counter, cap)
 
 
+@pytest.mark.slow  # seconds each: the fast loop stays under a minute
 @given(hits=ranked_hits(), budget=st.integers(1, 3000))
 @settings(max_examples=200, deadline=None)
 def test_whitespace_tokens_counter_never_exceeds(hits, budget) -> None:

@@ -136,6 +136,7 @@ def _hidden_chunk(served: Served) -> int:
     suppress_health_check=[HealthCheck.too_slow],
     phases=[Phase.explicit, Phase.generate],  # no shrinking: each example builds two indexes
 )
+@pytest.mark.slow  # seconds each: the fast loop stays under a minute
 @given(visible_docs, hidden_docs, st.lists(words, min_size=1, max_size=2))
 def test_hidden_documents_change_no_answer(visible, hidden, queries) -> None:
     pages = {f"v{i}.md": _page(f"Visible {i}", g, w) for i, (g, w) in enumerate(visible)}

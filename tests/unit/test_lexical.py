@@ -76,6 +76,7 @@ def test_lexical_query_with_no_words_gives_no_hits(searcher: Searcher) -> None:
     assert searcher.search("*** ((", 5, mode="lexical") == []
 
 
+@pytest.mark.slow  # seconds each: the fast loop stays under a minute
 @given(st.text(min_size=1, max_size=200))
 @settings(max_examples=300, deadline=None, suppress_health_check=FIXTURE_OK)
 def test_any_text_is_a_safe_query_in_every_mode(searcher: Searcher, text: str) -> None:

@@ -107,6 +107,7 @@ def test_cli_exits_75_with_one_line_when_locked(tmp_path: Path, wiki: Path) -> N
         holder.wait()
 
 
+@pytest.mark.slow  # seconds each: the fast loop stays under a minute
 def test_max_runtime_stops_at_a_checkpoint_and_the_next_run_finishes(
     tmp_path: Path, long_wiki: Path
 ) -> None:

@@ -266,6 +266,7 @@ def test_log_config_is_valid_for_dictconfig(fmt: str) -> None:
         assert "[rid-9] GET /health 200" in lines[0] and lines[1].endswith("started")
 
 
+@pytest.mark.slow  # seconds each: the fast loop stays under a minute
 @pytest.mark.subprocess
 def test_sounding_serve_logs_json_lines_with_request_ids(tmp_path: Path) -> None:
     """The real command: every line on stderr is a JSON object, uvicorn's included."""

@@ -45,6 +45,7 @@ def report_json(report: object) -> dict[str, object]:
     return out
 
 
+@pytest.mark.slow  # seconds each: the fast loop stays under a minute
 def test_pipelined_run_builds_the_sequential_index(tmp_path: Path) -> None:
     runs = {}
     for pipelined in (False, True):

@@ -61,6 +61,7 @@ def _scipy_permutation(a: np.ndarray, b: np.ndarray, n_resamples: float) -> floa
     ).pvalue
 
 
+@pytest.mark.slow  # seconds each: the fast loop stays under a minute
 @pytest.mark.parametrize("seed", range(8))
 @pytest.mark.parametrize("n", [3, 8, EXACT_MAX])
 def test_exact_randomisation_matches_scipy_exact_permutation_test(seed: int, n: int) -> None:
