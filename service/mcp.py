@@ -59,9 +59,9 @@ from .mcp_schemas import (
     tool_list,
 )
 from .routes.context import PER_DOCUMENT_POOL, candidate_pool, ground
-from .schemas import ContextPassageOut, DocumentResponse
+from .schemas import DocumentResponse
 from .settings import ServiceSettings
-from .views import document_view, passages
+from .views import context_passages, document_view, passages
 
 log = logging.getLogger("sounding.service")
 
@@ -183,22 +183,7 @@ def _context(asker: Asker, generation: Generation, args: ContextArgs) -> types.C
         token_counter(searcher.embedder.tokenizer),
         args.max_per_document,
     )
-    chosen_passages = [
-        ContextPassageOut(
-            number=p.number,
-            document_id=p.citation.document_id,
-            chunk_ids=list(p.chunk_ids),
-            title=p.citation.title,
-            source=p.citation.source,
-            trail=list(p.citation.trail),
-            page=p.citation.page,
-            text=p.text,
-            citation=p.citation.line(),
-            score=p.score,
-            truncated=p.truncated,
-        )
-        for p in chosen.passages
-    ]
+    chosen_passages = context_passages(chosen)
     structured = ContextResult(
         query=args.query,
         budget=args.budget,

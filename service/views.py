@@ -9,11 +9,19 @@ from dataclasses import asdict
 from typing import Any
 
 from sounding.indexer.display import document_sections, link, shown_source
+from sounding.indexer.grounding import Context
 from sounding.indexer.highlight import highlights
 from sounding.indexer.search import Hit
 from sounding.indexer.store import ChunkRecord, DocumentRecord
 
-from .schemas import ChunkOut, ChunkSpanOut, DocumentResponse, Passage, SectionOut
+from .schemas import (
+    ChunkOut,
+    ChunkSpanOut,
+    ContextPassageOut,
+    DocumentResponse,
+    Passage,
+    SectionOut,
+)
 
 
 def _web(value: Any) -> str | None:
@@ -75,3 +83,23 @@ def document_view(
             for s, spans in zip(sections, marks, strict=True)
         ],
     )
+
+
+def context_passages(chosen: Context) -> list[ContextPassageOut]:
+    """The cited passages of a context block, as ``POST /context`` and the MCP tool give them."""
+    return [
+        ContextPassageOut(
+            number=p.number,
+            document_id=p.citation.document_id,
+            chunk_ids=list(p.chunk_ids),
+            title=p.citation.title,
+            source=p.citation.source,
+            trail=list(p.citation.trail),
+            page=p.citation.page,
+            text=p.text,
+            citation=p.citation.line(),
+            score=p.score,
+            truncated=p.truncated,
+        )
+        for p in chosen.passages
+    ]

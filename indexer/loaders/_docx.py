@@ -13,7 +13,14 @@ from docx.text.paragraph import Paragraph
 
 from ..documents import Section
 from ._common import DEFAULT_LIMITS, LoadLimits, Parsed, title_from_stem
-from ._office import TextBudget, dedupe_cells, header_rows, properties, section, set_heading
+from ._office import (
+    TextBudget,
+    core_properties,
+    dedupe_cells,
+    header_rows,
+    section,
+    set_heading,
+)
 from ._zipcheck import open_container
 
 WHAT = "Word document (.docx)"
@@ -64,15 +71,7 @@ def parse_docx(data: bytes, stem: str, limits: LoadLimits = DEFAULT_LIMITS) -> P
             lines.extend(rows)
     flush()
     core = document.core_properties
-    metadata = properties(
-        author=core.author,
-        created=core.created,
-        modified=core.modified,
-        last_modified_by=core.last_modified_by,
-        subject=core.subject,
-        keywords=core.keywords,
-        category=core.category,
-    )
+    metadata = core_properties(core)
     if tables:
         metadata["tables"] = tables
     title = " ".join((core.title or "").split()) or styled_title or title_from_stem(stem)

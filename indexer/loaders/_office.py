@@ -92,6 +92,20 @@ def properties(**fields: Any) -> dict[str, Any]:
     return out
 
 
+def core_properties(core: Any) -> dict[str, Any]:
+    """The OOXML core properties (python-docx's and python-pptx's ``core_properties``) a
+    document's metadata keeps."""
+    return properties(
+        author=core.author,
+        created=core.created,
+        modified=core.modified,
+        last_modified_by=core.last_modified_by,
+        subject=core.subject,
+        keywords=core.keywords,
+        category=core.category,
+    )
+
+
 def section(trail: Sequence[str], lines: Sequence[str], page: int | None = None) -> Section | None:
     """A section of the non-empty ``lines``, or None when there is no text."""
     text = "\n".join(line for line in lines if line.strip()).strip()

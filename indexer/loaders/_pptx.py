@@ -11,7 +11,7 @@ from pptx.enum.shapes import MSO_SHAPE_TYPE
 
 from ..documents import Section
 from ._common import DEFAULT_LIMITS, LoadLimits, Parsed, title_from_stem
-from ._office import TextBudget, dedupe_cells, header_rows, properties, section
+from ._office import TextBudget, core_properties, dedupe_cells, header_rows, section
 from ._zipcheck import open_container
 
 WHAT = "PowerPoint deck (.pptx)"
@@ -52,14 +52,7 @@ def parse_pptx(data: bytes, stem: str, limits: LoadLimits = DEFAULT_LIMITS) -> P
         if made is not None:
             sections.append(made)
     core = deck.core_properties
-    metadata = properties(
-        author=core.author,
-        created=core.created,
-        modified=core.modified,
-        last_modified_by=core.last_modified_by,
-        subject=core.subject,
-        keywords=core.keywords,
-    )
+    metadata = core_properties(core)
     metadata["slides"] = count
     metadata["page_label"] = "slide"  # Section.page counts slides, not pages
     title = " ".join((core.title or "").split()) or first_title or title_from_stem(stem)

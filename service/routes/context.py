@@ -15,7 +15,8 @@ from ..auth import ReadCaller
 from ..deps import GenerationDep, SettingsDep
 from ..filters import search_filter
 from ..metrics import record_mode
-from ..schemas import ContextPassageOut, ContextRequest, ContextResponse, ErrorResponse
+from ..schemas import ContextRequest, ContextResponse, ErrorResponse
+from ..views import context_passages
 
 router = APIRouter(tags=["context"])
 
@@ -126,21 +127,6 @@ def context(
         mode=body.mode,
         generation=generation.number,
         elapsed_ms=round((time.perf_counter() - started) * 1000, 3),
-        passages=[
-            ContextPassageOut(
-                number=p.number,
-                document_id=p.citation.document_id,
-                chunk_ids=list(p.chunk_ids),
-                title=p.citation.title,
-                source=p.citation.source,
-                trail=list(p.citation.trail),
-                page=p.citation.page,
-                text=p.text,
-                citation=p.citation.line(),
-                score=p.score,
-                truncated=p.truncated,
-            )
-            for p in chosen.passages
-        ],
+        passages=context_passages(chosen),
         text=chosen.text,
     )
