@@ -92,7 +92,11 @@ def make_pdf(
         entries = [f"/Title {_pdf_string(title)}" if title is not None else ""]
         entries.append(f"/Author {_pdf_string(author)}" if author is not None else "")
         info = add(("<< " + " ".join(entries) + " >>").encode("latin-1"))
+    return serialise_pdf(objects, root=catalog, info=info)
 
+
+def serialise_pdf(objects: list[bytes], *, root: int = 1, info: int | None = None) -> bytes:
+    """The bytes of a PDF of ``objects`` (numbered from 1), with its cross-reference table."""
     out = io.BytesIO()
     out.write(b"%PDF-1.4\n")
     offsets = []
@@ -104,7 +108,7 @@ def make_pdf(
     for offset in offsets:
         out.write(b"%010d 00000 n \n" % offset)
     info_ref = f" /Info {info} 0 R" if info else ""
-    out.write(f"trailer\n<< /Size {len(objects) + 1} /Root {catalog} 0 R{info_ref} >>\n".encode())
+    out.write(f"trailer\n<< /Size {len(objects) + 1} /Root {root} 0 R{info_ref} >>\n".encode())
     out.write(b"startxref\n%d\n%%%%EOF\n" % xref)
     return out.getvalue()
 

@@ -7,7 +7,6 @@ the cap is passed. Seeded fake encoder; hostile PDFs are written here, by hand.
 
 from __future__ import annotations
 
-import io
 import json
 import zlib
 from pathlib import Path
@@ -20,6 +19,7 @@ from sounding.indexer.loaders import LoadLimits, parse_document
 from sounding.indexer.settings import IndexSettings
 
 from tests.conftest import ServeIndex
+from tests.unit.loading import serialise_pdf
 
 LONG = "\n\n".join(f"Paragraph {i} about sluice gates and tide tables." for i in range(200))
 
@@ -38,18 +38,7 @@ def bomb_pdf(pages: int, repeats: int) -> bytes:
     kids = " ".join(f"{5 + i} 0 R" for i in range(pages)).encode()
     objects[0] = b"<< /Type /Catalog /Pages 2 0 R >>"
     objects[1] = b"<< /Type /Pages /Kids [%s] /Count %d >>" % (kids, pages)
-    out = io.BytesIO()
-    out.write(b"%PDF-1.4\n")
-    offsets = []
-    for number, body in enumerate(objects, start=1):
-        offsets.append(out.tell())
-        out.write(b"%d 0 obj\n%s\nendobj\n" % (number, body))
-    xref = out.tell()
-    out.write(b"xref\n0 %d\n0000000000 65535 f \n" % (len(objects) + 1))
-    out.write(b"".join(b"%010d 00000 n \n" % o for o in offsets))
-    out.write(b"trailer\n<< /Size %d /Root 1 0 R >>\n" % (len(objects) + 1))
-    out.write(b"startxref\n%d\n%%%%EOF\n" % xref)
-    return out.getvalue()
+    return serialise_pdf(objects)
 
 
 def run(tmp_path: Path, pages: dict[str, str | bytes], **kw: object) -> dict[str, str]:
