@@ -58,7 +58,7 @@ from .mcp_schemas import (
     SearchResult,
     tool_list,
 )
-from .routes.context import PER_DOCUMENT_POOL, candidate_pool, ground
+from .routes.context import PER_DOCUMENT_POOL, candidate_pool, check_budget, ground
 from .schemas import DocumentResponse
 from .settings import ServiceSettings
 from .views import context_passages, document_view, passages
@@ -168,11 +168,7 @@ def _context(asker: Asker, generation: Generation, args: ContextArgs) -> types.C
         where=search_filter(asker.caller, args),
         max_query_chars=settings.max_query_chars,
     )
-    limit = settings.max_context_tokens
-    if args.budget > limit:
-        raise QueryError(
-            f"budget={args.budget} tokens is over the limit of {limit} (setting max_context_tokens)"
-        )
+    check_budget(args.budget, "tokens", settings)
     if args.budget < 1:
         raise QueryError(f"budget={args.budget} must be 1 or more")
     # The route's own grounding: same hits, same continuation of a procedure, same budget rule.

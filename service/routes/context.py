@@ -5,7 +5,8 @@ from __future__ import annotations
 import time
 from collections.abc import Sequence
 
-from fastapi import APIRouter, HTTPException, Request
+from fastapi import APIRouter, Request
+from sounding.indexer.errors import QueryError
 from sounding.indexer.grounding import Context, Counter, select_context, token_counter
 from sounding.indexer.search import Hit, Query, Searcher
 from sounding.indexer.selection import SearchFilter
@@ -16,6 +17,7 @@ from ..deps import GenerationDep, SettingsDep
 from ..filters import search_filter
 from ..metrics import record_mode
 from ..schemas import ContextRequest, ContextResponse, ErrorResponse
+from ..settings import ServiceSettings
 from ..views import context_passages
 
 router = APIRouter(tags=["context"])
@@ -73,6 +75,17 @@ def ground(
     )
 
 
+def check_budget(budget: int, unit: str, settings: ServiceSettings) -> None:
+    """QueryError (the app's 422) when ``budget`` is over the settings' limit for ``unit``."""
+    limit, setting = (
+        (settings.max_context_tokens, "max_context_tokens")
+        if unit == "tokens"
+        else (settings.max_context_chars, "max_context_chars")
+    )
+    if budget > limit:
+        raise QueryError(f"budget={budget} {unit} is over the limit of {limit} (setting {setting})")
+
+
 def candidate_pool(budget: int, unit: str) -> int:
     """How many hits to rank for a budget: about two per chunk-sized share of it."""
     tokens = budget if unit == "tokens" else budget // CHARS_PER_TOKEN
@@ -107,16 +120,7 @@ def context(
         where=search_filter(caller, body),
         max_query_chars=settings.max_query_chars,
     )
-    limit, setting = (
-        (settings.max_context_tokens, "max_context_tokens")
-        if body.unit == "tokens"
-        else (settings.max_context_chars, "max_context_chars")
-    )
-    if body.budget > limit:
-        raise HTTPException(
-            422,
-            f"budget={body.budget} {body.unit} is over the limit of {limit} (setting {setting})",
-        )
+    check_budget(body.budget, body.unit, settings)
     count = token_counter(searcher.embedder.tokenizer) if body.unit == "tokens" else len
     chosen = ground(searcher, query, body.budget, count, body.max_per_document)
     return ContextResponse(
